@@ -1,0 +1,203 @@
+// Package emit computes what a certificate claims and writes it in the
+// format of package cert: the residue-class sieve mod 2^k, its closing
+// classes, survivors and exceptions. It trusts nothing it has not computed
+// and checks its own walk against an independent count before it finishes;
+// the real check is package check's.
+package emit
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"runtime"
+
+	"golang.org/x/sync/errgroup"
+
+	"descent/cert"
+)
+
+// SieveParams names a sieve: the map, the modulus exponent k, the step
+// budget j <= k and the step cap for deciding the exceptions' fates.
+type SieveParams struct {
+	Map  cert.Map
+	K, J int
+	Cap  uint32
+}
+
+// DefaultCap is the step cap for exceptions' fates when none is given
+// (common practice, no source: generous for every known cycle of the maps
+// in use, and a few hundred milliseconds for an orbit that never settles).
+const DefaultCap = 100000
+
+// Options tune a run without changing its output.
+type Options struct {
+	Workers  int                   // parallel chunk encoders; 0 means GOMAXPROCS
+	Progress func(done, total int) // called after each chunk is written
+}
+
+// Result describes a written certificate.
+type Result struct {
+	Header *cert.SieveHeader
+	Root   cert.Hash
+	Size   int64
+}
+
+type stub struct {
+	res uint64
+	s   int
+	v   uint64
+	out chan chunkOut
+}
+
+type chunkOut struct {
+	rec   []byte
+	leaf  cert.Hash
+	tally tally
+}
+
+// Sieve writes the sieve certificate for p to w. The bytes depend only on p.
+func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Result, error) {
+	r, err := newRules(p.Map, p.K, p.J)
+	if err != nil {
+		return nil, err
+	}
+	if p.Cap == 0 {
+		p.Cap = DefaultCap
+	}
+	h, err := r.header(p.Cap)
+	if err != nil {
+		return nil, err
+	}
+	hb, err := h.Marshal()
+	if err != nil {
+		return nil, err
+	}
+	cw, err := cert.NewWriter(w, hb)
+	if err != nil {
+		return nil, err
+	}
+
+	d := cert.SplitDepth(r.j)
+	total := newTally(r.j)
+
+	// Chunk 0: the top of the trie. Its stubs are generated again below,
+	// lazily, so that no list of them is ever held.
+	top := encoder{r: r, end: d, tb: -1, tally: newTally(r.j)}
+	if err := top.top(0, 0, 0, 0); err != nil {
+		return nil, err
+	}
+	rec := cert.Chunk{NBits: top.w.Len(), Payload: top.w.Bytes()}.Marshal()
+	if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
+		return nil, err
+	}
+	top.tally.open = 0 // the stubs are not survivors; their subtrees count
+	total.add(top.tally)
+
+	levels := min(bottomLevels, r.j-d)
+	table := buildBottom(r, levels)
+	workers := o.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+
+	g, ctx := errgroup.WithContext(ctx)
+	jobs := make(chan stub, 4*workers)
+	order := make(chan chan chunkOut, 8*workers)
+	g.Go(func() error { // the generator: stubs in depth-first order
+		defer close(jobs)
+		defer close(order)
+		gen := encoder{r: r, end: d, tb: -1, tally: newTally(r.j)}
+		gen.stub = func(res uint64, s int, v uint64) error {
+			st := stub{res: res, s: s, v: v, out: make(chan chunkOut, 1)}
+			if !trySend(ctx, order, st.out) || !trySend(ctx, jobs, st) {
+				return ctx.Err()
+			}
+			return nil
+		}
+		return gen.top(0, 0, 0, 0)
+	})
+	for range workers {
+		g.Go(func() error {
+			for st := range jobs {
+				e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
+				e.node(d, st.s, st.v)
+				rec := cert.Chunk{Residue: st.res, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
+				st.out <- chunkOut{rec: rec, leaf: cert.LeafHash(rec), tally: e.tally}
+			}
+			return nil
+		})
+	}
+	g.Go(func() error { // the writer: chunks in order
+		done, stubs := 0, int(h.Chunks-1)
+		for out := range order {
+			var c chunkOut
+			select {
+			case c = <-out:
+			case <-ctx.Done():
+				return ctx.Err()
+			}
+			if err := cw.WriteRecord(c.rec, c.leaf); err != nil {
+				return err
+			}
+			total.add(c.tally)
+			done++
+			if o.Progress != nil {
+				o.Progress(done, stubs)
+			}
+		}
+		if done != stubs {
+			return fmt.Errorf("emit: internal error: the walk found %d classes open at depth %d, the count says %d", done, d, stubs)
+		}
+		return nil
+	})
+	if err := g.Wait(); err != nil {
+		return nil, err
+	}
+	if err := r.agree(h, total); err != nil {
+		return nil, err
+	}
+	root, size, err := cw.Close()
+	if err != nil {
+		return nil, err
+	}
+	return &Result{Header: h, Root: root, Size: size}, nil
+}
+
+func trySend[T any](ctx context.Context, ch chan<- T, v T) bool {
+	select {
+	case ch <- v:
+		return true
+	case <-ctx.Done():
+		return false
+	}
+}
+
+// header states the claim: counts from the (depth, odd steps) table and the
+// exceptions from the exception search.
+func (r *rules) header(cap uint32) (*cert.SieveHeader, error) {
+	closedAt, openAt := r.counts()
+	exc, err := r.exceptions(cap)
+	if err != nil {
+		return nil, err
+	}
+	return &cert.SieveHeader{
+		Map: r.m, K: r.k, J: r.j, Cap: cap,
+		Chunks:     int(openAt[cert.SplitDepth(r.j)]) + 1,
+		Survivors:  openAt[r.j] << (r.k - r.j),
+		ClosedAt:   closedAt[1:],
+		Exceptions: exc,
+	}, nil
+}
+
+// agree compares what the walk wrote with the header written before it.
+func (r *rules) agree(h *cert.SieveHeader, got tally) error {
+	if got.open<<(r.k-r.j) != h.Survivors {
+		return fmt.Errorf("emit: internal error: the walk wrote %d survivors mod 2^%d, the count says %d", got.open<<(r.k-r.j), r.j, h.Survivors)
+	}
+	for t := 1; t <= r.j; t++ {
+		if got.closed[t] != h.ClosedAt[t-1] {
+			return fmt.Errorf("emit: internal error: the walk closed %d classes at step %d, the count says %d", got.closed[t], t, h.ClosedAt[t-1])
+		}
+	}
+	return nil
+}
