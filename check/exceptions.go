@@ -1,0 +1,157 @@
+package check
+
+import (
+	"fmt"
+	"math/big"
+)
+
+// maxSearch caps how many numbers the checker tests for exceptions; a
+// certificate whose map needs more is beyond this checker's limits.
+const maxSearch = 1 << 20
+
+// exceptionLimit bounds every exception (SPEC.md, "Exceptions"). A class
+// closing at t with s odd steps has T^t(n) = (a^s*n + c)/2^t, and since each
+// shorter prefix of its parity vector was still open, c <= s*b*a^s/2; its
+// exceptions satisfy (2^t - a^s)*n <= c. A class can close only at t equal
+// to the bit length of a^s.
+func (sv *sieve) exceptionLimit() *big.Int {
+	limit := new(big.Int)
+	if sv.h.b < 0 {
+		return limit // then c < 0 and no member is an exception
+	}
+	for s := 1; s <= sv.j; s++ {
+		t := sv.alen[s]
+		if t > sv.j {
+			continue
+		}
+		as := new(big.Int).Exp(sv.A, big.NewInt(int64(s)), nil)
+		num := new(big.Int).Mul(as, big.NewInt(int64(s)))
+		num.Mul(num, sv.B)
+		den := new(big.Int).Lsh(big.NewInt(1), uint(t))
+		den.Sub(den, as)
+		den.Lsh(den, 1)
+		if q := num.Div(num, den); q.Cmp(limit) > 0 {
+			limit = q
+		}
+	}
+	return limit
+}
+
+// apply sets x to T(x) and says whether the step was odd.
+func (sv *sieve) apply(x *big.Int) bool {
+	if x.Bit(0) == 0 {
+		x.Rsh(x, 1)
+		return false
+	}
+	x.Mul(x, sv.A)
+	x.Add(x, sv.B)
+	x.Rsh(x, 1)
+	return true
+}
+
+// isException follows n until its class closes (or j steps pass) and says
+// whether n is at or below its class's threshold: T^t(n) >= n.
+func (sv *sieve) isException(n *big.Int) (bool, int) {
+	x := new(big.Int).Set(n)
+	s := 0
+	for t := 1; t <= sv.j; t++ {
+		if sv.apply(x) {
+			s++
+		}
+		if sv.closesAt(t, s) {
+			return x.Cmp(n) >= 0, t
+		}
+	}
+	return false, 0
+}
+
+// fateOf decides n by direct iteration within the cap, x_i = T^i(n):
+// it descends at the first i <= cap with x_i < n; else its orbit repeats
+// within x_0..x_cap exactly when x_cap is one of x_0..x_(cap-1), and then
+// x_cap is on the cycle; else it is undecided.
+func (sv *sieve) fateOf(n *big.Int) exception {
+	x := new(big.Int).Set(n)
+	for i := uint32(1); i <= sv.h.cap; i++ {
+		sv.apply(x)
+		if x.Cmp(n) < 0 {
+			return exception{n: n, fate: 1, steps: i}
+		}
+	}
+	end := new(big.Int).Set(x)
+	y := new(big.Int).Set(n)
+	for i := uint32(0); i < sv.h.cap; i++ {
+		if y.Cmp(end) == 0 {
+			least := new(big.Int).Set(end)
+			for sv.apply(y); y.Cmp(end) != 0; sv.apply(y) {
+				if y.Cmp(least) < 0 {
+					least.Set(y)
+				}
+			}
+			return exception{n: n, fate: 2, cycleMin: least}
+		}
+		sv.apply(y)
+	}
+	return exception{n: n, fate: 3}
+}
+
+func fateName(e exception) string {
+	switch e.fate {
+	case 1:
+		return fmt.Sprintf("descends after %d steps", e.steps)
+	case 2:
+		if e.cycleMin.Cmp(e.n) == 0 {
+			return "lies on a cycle, as its smallest member"
+		}
+		return fmt.Sprintf("reaches the cycle whose smallest member is %v", e.cycleMin)
+	}
+	return "undecided within the cap"
+}
+
+func sameFate(x, y exception) bool {
+	return x.fate == y.fate && x.steps == y.steps &&
+		(x.fate != 2 || x.cycleMin.Cmp(y.cycleMin) == 0)
+}
+
+// checkExceptions finds every exception afresh and compares the header's
+// list with it, entry by entry in increasing order.
+func (sv *sieve) checkExceptions() *Failure {
+	limit := sv.exceptionLimit()
+	if !limit.IsInt64() || limit.Int64() > maxSearch {
+		return &Failure{Class: ErrMalformed, Reason: "limits",
+			Msg: fmt.Sprintf("map %s with j = %d has exceptions up to %v; this checker tests at most %d numbers", sv.name, sv.j, limit, maxSearch)}
+	}
+	listed := sv.h.exc
+	for n := int64(1); n <= limit.Int64(); n++ {
+		bn := big.NewInt(n)
+		is, t := sv.isException(bn)
+		inList := len(listed) > 0 && listed[0].n.Cmp(bn) == 0
+		switch {
+		case is && !inList:
+			return sv.excFail(bn, "listed", "missing", "n = %d is an exception (its class closes at step %d and T^%d(n) >= n) but is not listed", n, t, t)
+		case !is && inList:
+			return sv.excFail(bn, "not an exception", "listed", "n = %d is listed as an exception but is none: %s", n, sv.why(bn))
+		case is:
+			got := sv.fateOf(bn)
+			if !sameFate(got, listed[0]) {
+				return sv.excFail(bn, fateName(got), fateName(listed[0]), "n = %d %s, not as listed: %s", n, fateName(got), fateName(listed[0]))
+			}
+			listed = listed[1:]
+		}
+	}
+	if len(listed) > 0 {
+		return sv.excFail(listed[0].n, "not an exception", "listed",
+			"%v is listed as an exception, but every exception is at most %v", listed[0].n, limit)
+	}
+	return nil
+}
+
+func (sv *sieve) why(n *big.Int) string {
+	if _, t := sv.isException(n); t > 0 {
+		return fmt.Sprintf("its class closes at step %d and T^%d(n) < n", t, t)
+	}
+	return fmt.Sprintf("its class does not close within %d steps (a survivor)", sv.j)
+}
+
+func (sv *sieve) excFail(n *big.Int, expected, found, format string, args ...any) *Failure {
+	return invalid("exception", Where{N: n.String(), Claim: "exception", Expected: expected, Found: found}, format, args...)
+}

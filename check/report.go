@@ -1,0 +1,148 @@
+package check
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"strconv"
+	"strings"
+)
+
+// The two ways a certificate fails. Callers branch on them with errors.Is:
+// a malformed or unreadable file is a usage problem (exit 2), an invalid
+// one is a certificate that does not prove what it says (exit 1).
+var (
+	ErrMalformed = errors.New("malformed")
+	ErrInvalid   = errors.New("invalid")
+)
+
+// Failure is the first thing found wrong, with where it was found.
+type Failure struct {
+	Class  error  // ErrMalformed or ErrInvalid
+	Reason string // a stable code, listed in Reasons
+	Msg    string
+	Where  Where
+}
+
+func (f *Failure) Error() string {
+	if loc := f.Where.String(); loc != "" {
+		return loc + ": " + f.Msg
+	}
+	return f.Msg
+}
+
+func (f *Failure) Unwrap() error { return f.Class }
+
+// Reasons lists every failure code with what it means.
+var Reasons = map[string]string{
+	"malformed":        "the bytes do not follow the format",
+	"limits":           "the certificate asks for more work than this checker allows",
+	"hash":             "a record or the header does not match its hash in the stored tree",
+	"tree":             "a stored inner hash does not match its children",
+	"root":             "the root is not the expected one",
+	"residue":          "a chunk covers another class than the one its position calls for",
+	"depth":            "the trie codes end early or go on past their depth",
+	"closed-early":     "a class is claimed to close at a step where it has not closed yet",
+	"closed-odd":       "a class is claimed to close at a step it takes odd, where no class closes",
+	"closed-late":      "a class that closes at a step is claimed to stay open",
+	"survivor-dropped": "a survivor is claimed to close",
+	"count":            "a count in the header differs from the count the claims give",
+	"exception":        "an exception is missing, invented, or has the wrong fate",
+}
+
+// Where locates a failure. Zero fields are unknown or do not apply.
+type Where struct {
+	Offset   int64  `json:"offset,omitempty"`
+	Chunk    *int   `json:"chunk,omitempty"`
+	Residue  string `json:"residue,omitempty"` // the class Residue mod 2^Step
+	Step     int    `json:"step,omitempty"`
+	N        string `json:"n,omitempty"`
+	Claim    string `json:"claim,omitempty"`
+	Expected string `json:"expected,omitempty"`
+	Found    string `json:"found,omitempty"`
+}
+
+func (w Where) String() string {
+	var parts []string
+	if w.Chunk != nil {
+		parts = append(parts, fmt.Sprintf("chunk %d", *w.Chunk))
+	}
+	if w.Residue != "" {
+		parts = append(parts, fmt.Sprintf("class %s mod 2^%d", w.Residue, w.Step))
+	}
+	if w.N != "" {
+		parts = append(parts, "n = "+w.N)
+	}
+	if w.Offset > 0 {
+		parts = append(parts, fmt.Sprintf("offset %d", w.Offset))
+	}
+	return strings.Join(parts, ", ")
+}
+
+// Num is a non-negative integer that JSON carries as a number up to 2^53
+// and as a decimal string above, where JSON readers lose precision.
+type Num string
+
+func numU(x uint64) Num { return Num(strconv.FormatUint(x, 10)) }
+
+func (n Num) MarshalJSON() ([]byte, error) {
+	if v, err := strconv.ParseUint(string(n), 10, 64); err == nil && v <= 1<<53 {
+		return []byte(n), nil
+	}
+	return json.Marshal(string(n))
+}
+
+// ExceptionReport is one exception as the checker found it.
+type ExceptionReport struct {
+	N        Num    `json:"n"`
+	Fate     string `json:"fate"` // descends, cycle or undecided
+	Steps    uint32 `json:"steps,omitempty"`
+	CycleMin Num    `json:"cycle_min,omitempty"`
+}
+
+// Report is the outcome of checking one certificate. The claim fields come
+// from the header and are filled in as far as the header could be read;
+// they are proven only when Valid is true.
+type Report struct {
+	File       string            `json:"file,omitempty"`
+	Valid      bool              `json:"valid"`
+	Kind       string            `json:"kind,omitempty"`
+	Root       string            `json:"root,omitempty"`
+	Map        string            `json:"map,omitempty"`
+	K          int               `json:"k,omitempty"`
+	J          int               `json:"j,omitempty"`
+	Cap        uint32            `json:"cap,omitempty"`
+	Chunks     int               `json:"chunks,omitempty"`
+	Survivors  Num               `json:"survivors,omitempty"`
+	ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
+	Exceptions []ExceptionReport `json:"exceptions"`
+	Reason     string            `json:"reason,omitempty"`
+	Error      string            `json:"error,omitempty"`
+	Where      *Where            `json:"where,omitempty"`
+
+	failure *Failure
+}
+
+// Err returns nil for a valid certificate and the failure otherwise.
+func (r *Report) Err() error {
+	if r.failure == nil {
+		return nil
+	}
+	return r.failure
+}
+
+func (r *Report) fail(f *Failure) *Report {
+	r.Valid, r.failure = false, f
+	r.Reason, r.Error = f.Reason, f.Error()
+	w := f.Where
+	r.Where = &w
+	return r
+}
+
+func malformed(off int64, format string, args ...any) *Failure {
+	return &Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf(format, args...), Where: Where{Offset: off}}
+}
+
+func invalid(reason string, w Where, format string, args ...any) *Failure {
+	return &Failure{Class: ErrInvalid, Reason: reason, Msg: fmt.Sprintf(format, args...), Where: w}
+}

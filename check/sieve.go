@@ -1,0 +1,215 @@
+package check
+
+import (
+	"fmt"
+	"math/big"
+	"strconv"
+)
+
+// sieve holds the checker's own arithmetic for one map and budget.
+//
+// Parities are followed modulo 2^64: the next j-t parities of a value
+// depend only on its residue mod 2^(j-t), and a step loses one low bit, so
+// 64 bits decide every parity up to j = 64 (SPEC.md, "Why the walk may work
+// modulo 2^64"). The wrap-around is modular arithmetic by design. Whether a
+// class closes is decided by exact bit lengths of a^s, and exceptions and
+// fates use math/big.
+type sieve struct {
+	h       *sieveHeader
+	a, b    uint64
+	j, d    int
+	apow    []uint64 // a^s mod 2^64
+	alen    []int    // bit length of a^s, exact
+	A, B    *big.Int
+	name    string
+	useMemo bool
+}
+
+func newSieve(h *sieveHeader) *sieve {
+	sv := &sieve{h: h, a: uint64(h.a), b: uint64(int64(h.b)), j: h.j, d: h.j / 2,
+		A: big.NewInt(int64(h.a)), B: big.NewInt(int64(h.b)), name: mapName(h.a, h.b)}
+	p := big.NewInt(1)
+	for s := 0; s <= h.j+1; s++ {
+		sv.apow = append(sv.apow, p.Uint64())
+		sv.alen = append(sv.alen, p.BitLen())
+		p.Mul(p, sv.A)
+	}
+	return sv
+}
+
+// closesAt: after t steps with s odd ones, a class closes iff a^s < 2^t.
+func (sv *sieve) closesAt(t, s int) bool { return sv.alen[s] <= t }
+
+// step takes a value one step on, modulo 2^64.
+func (sv *sieve) step(v uint64, s int) (uint64, int) {
+	if v&1 == 0 {
+		return v >> 1, s
+	}
+	return (sv.a*v + sv.b) >> 1, s + 1
+}
+
+func (sv *sieve) power(s int) string {
+	p := new(big.Int).Exp(sv.A, big.NewInt(int64(s)), nil)
+	if p.BitLen() > 64 {
+		return fmt.Sprintf("%d^%d (%d bits)", sv.h.a, s, p.BitLen())
+	}
+	return fmt.Sprintf("%d^%d = %v", sv.h.a, s, p)
+}
+
+type stubState struct {
+	res uint64
+	s   int
+	v   uint64
+}
+
+// walk re-derives the claims of one chunk: it reads each code and compares
+// it with what the map says about that class.
+type walk struct {
+	sv        *sieve
+	chunk     int
+	code      []byte
+	nbit, pos uint64
+	end       int
+	survivors uint64
+	closed    []uint64 // closed[t]
+	stubs     []stubState
+	memo      *memo // nil: walk every class
+	fail      *Failure
+}
+
+func (w *walk) bit() (uint64, bool) {
+	if w.pos >= w.nbit {
+		return 0, false
+	}
+	b := uint64(w.code[w.pos/8]>>(7-w.pos%8)) & 1
+	w.pos++
+	return b, true
+}
+
+func (w *walk) where(res uint64, t int, claim, expected, found string) Where {
+	c := w.chunk
+	return Where{Chunk: &c, Residue: strconv.FormatUint(res, 10), Step: t, Claim: claim, Expected: expected, Found: found}
+}
+
+// visit checks the codes below the open class res mod 2^t, which has s odd
+// steps and value v = T^t(res) mod 2^64.
+func (w *walk) visit(t, s int, v, res uint64) bool {
+	sv := w.sv
+	for t < w.end {
+		if w.memo != nil && t == w.memo.depth {
+			if c := w.memo.codes[s]; c != nil && w.matches(&c[v&w.memo.mask]) {
+				return true
+			}
+		}
+		x, ok := w.bit()
+		if !ok {
+			w.fail = invalid("depth", w.where(res, t, "", "", ""),
+				"the codes end at an open class of depth %d, above depth %d", t, w.end)
+			return false
+		}
+		even := v & 1               // the child whose step t+1 is even
+		shut := sv.closesAt(t+1, s) // that child closes at t+1
+		if x == 0 {
+			if shut {
+				c := res | even<<t
+				w.fail = invalid("closed-late", w.where(c, t+1, fmt.Sprintf("open after step %d", t+1), "closed", "open"),
+					"the class closes at step %d (%s < 2^%d) but is claimed open", t+1, sv.power(s), t+1)
+				return false
+			}
+			v0, s0 := sv.step(v, s)
+			if !w.visit(t+1, s0, v0, res) {
+				return false
+			}
+			v, s = sv.step(v+sv.apow[s], s)
+			res |= 1 << t
+			t++
+			continue
+		}
+		y, ok := w.bit()
+		if !ok {
+			w.fail = invalid("depth", w.where(res, t, "", "", ""), "the codes end inside the code of this class")
+			return false
+		}
+		if y != even || !shut {
+			w.fail = w.falseClosing(res|y<<t, t+1, s, y != even)
+			return false
+		}
+		w.closed[t+1]++
+		odd := 1 - even
+		v, s = sv.step(v+odd*sv.apow[s], s)
+		res |= odd << t
+		t++
+	}
+	if w.end == sv.j {
+		w.survivors++
+	} else {
+		w.stubs = append(w.stubs, stubState{res: res, s: s, v: v})
+	}
+	return true
+}
+
+// falseClosing explains why class c mod 2^t, claimed to close at step t,
+// does not: its step t is odd, or it has s odd steps and a^s >= 2^t.
+func (w *walk) falseClosing(c uint64, t, s int, oddStep bool) *Failure {
+	sv := w.sv
+	claim := fmt.Sprintf("closes at step %d", t)
+	switch {
+	case oddStep:
+		return invalid("closed-odd", w.where(c, t, claim, "open", "closed"),
+			"step %d of this class is odd under %s, so it has %d odd steps and %s > 2^%d; it does not close there",
+			t, sv.name, s+1, sv.power(s+1), t)
+	case t == sv.j:
+		return invalid("survivor-dropped", w.where(c, t, claim, "survivor", "closed"),
+			"the class survives all %d steps: it has %d odd steps and %s >= 2^%d", t, s, sv.power(s), t)
+	}
+	return invalid("closed-early", w.where(c, t, claim, "open", "closed"),
+		"after %d steps the class has %d odd steps and %s >= 2^%d; it has not closed yet", t, s, sv.power(s), t)
+}
+
+// checkChunk verifies one chunk record at index i (0 is the top).
+func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo) (*walk, *Failure) {
+	if len(rec) < chunkHead {
+		return nil, malformed(base, "chunk record of %d bytes is shorter than its %d-byte head", len(rec), chunkHead)
+	}
+	res := uint64(rec[0])<<56 | uint64(rec[1])<<48 | uint64(rec[2])<<40 | uint64(rec[3])<<32 |
+		uint64(rec[4])<<24 | uint64(rec[5])<<16 | uint64(rec[6])<<8 | uint64(rec[7])
+	nbit := uint64(rec[8])<<24 | uint64(rec[9])<<16 | uint64(rec[10])<<8 | uint64(rec[11])
+	code := rec[chunkHead:]
+	if uint64(len(code)) != (nbit+7)/8 {
+		return nil, malformed(base+8, "chunk %d: %d code bits need %d bytes, the record has %d", i, nbit, (nbit+7)/8, len(code))
+	}
+	if nbit%8 != 0 && code[len(code)-1]<<(nbit%8) != 0 {
+		return nil, malformed(base+int64(len(rec))-1, "chunk %d: padding bits are not zero", i)
+	}
+	w := &walk{sv: sv, chunk: i, code: code, nbit: nbit, closed: make([]uint64, sv.j+1)}
+	start := stubState{}
+	if i == 0 {
+		w.end = sv.d
+		if res != 0 {
+			return nil, invalid("residue", w.where(res, 0, "top chunk", "0", strconv.FormatUint(res, 10)), "the top chunk must start at the root, residue 0")
+		}
+	} else {
+		w.end, w.memo = sv.j, m
+		if res != want.res {
+			return nil, invalid("residue", w.where(res, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(res, 10)),
+				"chunk %d must cover class %d mod 2^%d, the %d-th open class at depth %d", i, want.res, sv.d, i, sv.d)
+		}
+		start = *want
+	}
+	if !w.visit(startDepth(i, sv.d), start.s, start.v, start.res) {
+		return nil, w.fail
+	}
+	if w.pos != w.nbit {
+		return nil, invalid("depth", w.where(start.res, startDepth(i, sv.d), "", "", ""),
+			"%d code bits are left after the last class of depth %d", w.nbit-w.pos, w.end)
+	}
+	return w, nil
+}
+
+// startDepth is the depth at which chunk i starts.
+func startDepth(i, d int) int {
+	if i == 0 {
+		return 0
+	}
+	return d
+}
