@@ -1,0 +1,76 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+
+	"descent/check"
+)
+
+func (c *cli) check(args []string) int {
+	fs := c.flags("check", "check [-json] [-root HEX] FILE...")
+	asJSON := fs.Bool("json", false, "write one JSON report per certificate, one per line")
+	rootHex := fs.String("root", "", "the published root `HEX` the certificate must have")
+	workers := fs.Int("workers", 0, "chunks verified in parallel (default: all cores)")
+	if code, stop := parse(fs, args); stop {
+		return code
+	}
+	if fs.NArg() == 0 {
+		c.errorf("check: no certificate given")
+		fs.Usage()
+		return exitUsage
+	}
+	o := check.Options{Workers: *workers}
+	if *rootHex != "" {
+		root, err := check.ParseRoot(*rootHex)
+		if err != nil {
+			c.errorf("check: -root: %v", err)
+			return exitUsage
+		}
+		o.Root = &root
+	}
+	status := exitOK
+	for _, path := range fs.Args() {
+		rep := check.File(path, o)
+		status = max(status, exitStatus(rep))
+		if *asJSON {
+			b, err := json.Marshal(rep)
+			if err != nil {
+				c.errorf("check: %s: %v", path, err)
+				return exitUsage
+			}
+			fmt.Fprintf(c.stdout, "%s\n", b)
+			continue
+		}
+		c.printReport(rep)
+	}
+	return status
+}
+
+func exitStatus(rep *check.Report) int {
+	switch err := rep.Err(); {
+	case err == nil:
+		return exitOK
+	case errors.Is(err, check.ErrInvalid):
+		return exitInvalid
+	}
+	return exitUsage
+}
+
+func (c *cli) printReport(rep *check.Report) {
+	if rep.Valid {
+		fmt.Fprintf(c.stdout, "%s: valid %s certificate\n  root       %s\n  claim      %s\n",
+			rep.File, rep.Kind, rep.Root, factsFromReport(rep).summary())
+		return
+	}
+	verdict := "INVALID"
+	if errors.Is(rep.Err(), check.ErrMalformed) {
+		verdict = "MALFORMED"
+	}
+	fmt.Fprintf(c.stdout, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
+	if w := rep.Where; w != nil && (w.Expected != "" || w.Found != "") {
+		fmt.Fprintf(c.stdout, "  claim      %s\n  expected   %s\n  found      %s\n", w.Claim, w.Expected, w.Found)
+	}
+	c.errorf("%s: %s", rep.File, verdict)
+}

@@ -1,0 +1,142 @@
+package main
+
+import (
+	"fmt"
+	"sort"
+	"strconv"
+	"strings"
+
+	"descent/cert"
+	"descent/check"
+)
+
+// facts is the claim of a sieve certificate, gathered either from the
+// header as written (show) or from the checker's report (check), and put
+// into words here once for both.
+type facts struct {
+	Map        string
+	K, J       int
+	Cap        uint32
+	Survivors  uint64
+	Closing    []closing
+	Exceptions []excFact
+}
+
+type closing struct {
+	Step    int
+	Classes uint64
+}
+
+type excFact struct {
+	N, Fate  string
+	Steps    uint32
+	CycleMin string
+}
+
+func factsFromHeader(h *cert.SieveHeader) facts {
+	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Survivors: h.Survivors}
+	for t, n := range h.ClosedAt {
+		if n > 0 {
+			f.Closing = append(f.Closing, closing{Step: t + 1, Classes: n})
+		}
+	}
+	for _, e := range h.Exceptions {
+		x := excFact{N: e.N.String(), Fate: e.Fate.String(), Steps: e.Steps}
+		if e.Fate == cert.Cycle {
+			x.CycleMin = e.CycleMin.String()
+		}
+		f.Exceptions = append(f.Exceptions, x)
+	}
+	return f
+}
+
+func factsFromReport(r *check.Report) facts {
+	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap}
+	f.Survivors, _ = strconv.ParseUint(string(r.Survivors), 10, 64)
+	for step, n := range r.ClosedAt {
+		t, _ := strconv.Atoi(step)
+		c, _ := strconv.ParseUint(string(n), 10, 64)
+		f.Closing = append(f.Closing, closing{Step: t, Classes: c})
+	}
+	sort.Slice(f.Closing, func(a, b int) bool { return f.Closing[a].Step < f.Closing[b].Step })
+	for _, e := range r.Exceptions {
+		f.Exceptions = append(f.Exceptions, excFact{N: string(e.N), Fate: e.Fate, Steps: e.Steps, CycleMin: string(e.CycleMin)})
+	}
+	return f
+}
+
+// mapText writes T out in full.
+func (f facts) mapText() string {
+	return fmt.Sprintf("T(n) = n/2 for even n, (%s)/2 for odd n", f.Map)
+}
+
+func (f facts) closedClasses() uint64 {
+	var n uint64
+	for _, c := range f.Closing {
+		n += c.Classes
+	}
+	return n
+}
+
+func (e excFact) fateText(cap uint32) string {
+	switch e.Fate {
+	case "descends":
+		return fmt.Sprintf("descends below itself after %d steps", e.Steps)
+	case "cycle":
+		if e.CycleMin == e.N {
+			return "lies on a cycle, as its smallest member"
+		}
+		return "reaches the cycle whose smallest member is " + e.CycleMin
+	}
+	return fmt.Sprintf("undecided: neither descends nor repeats within %d steps", cap)
+}
+
+func (f facts) exceptionList() string {
+	var parts []string
+	for _, e := range f.Exceptions {
+		parts = append(parts, fmt.Sprintf("n = %s %s", e.N, e.fateText(f.Cap)))
+	}
+	return strings.Join(parts, "; ")
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return fmt.Sprintf("%d %s", n, one)
+	}
+	return fmt.Sprintf("%d %s", n, many)
+}
+
+// summary is the claim in one line.
+func (f facts) summary() string {
+	s := fmt.Sprintf("%s: %d of the 2^%d residues survive %d steps; the rest lie in %d closing classes; %s",
+		f.Map, f.Survivors, f.K, f.J, f.closedClasses(), plural(len(f.Exceptions), "exception", "exceptions"))
+	if len(f.Exceptions) > 0 && len(f.Exceptions) <= 3 {
+		s += " (" + f.exceptionList() + ")"
+	}
+	return s
+}
+
+// sentence is the claim fit to quote.
+func (f facts) sentence() string {
+	s := fmt.Sprintf("For %s, every residue mod 2^%d lies either in one of %d classes r mod 2^t (t <= %d) "+
+		"that close at step t, or among the %d survivors. A class closes at step t when its first t steps "+
+		"have s odd ones with a^s < 2^t (here a = the multiplier of the map); then T^t(n) = (a^s*n + c)/2^t "+
+		"for every member n, so T^t(n) < n for every member above c/(2^t - a^s).",
+		f.mapText(), f.K, f.closedClasses(), f.J, f.Survivors)
+	switch len(f.Exceptions) {
+	case 0:
+		s += " No positive member of a closing class lies at or below its threshold."
+	default:
+		s += fmt.Sprintf(" The members at or below their threshold are %s, decided by direct iteration within %d steps: %s.",
+			plural(len(f.Exceptions), "number", "numbers"), f.Cap, f.exceptionList())
+	}
+	return s
+}
+
+// caveat says what the claim does not prove.
+func (f facts) caveat() string {
+	return fmt.Sprintf("This is a bounded claim about the first %d steps. It does not show that any number reaches 1 "+
+		"or a cycle, it says nothing about the %d survivors beyond step %d, and it is not a proof of the 3n+1 "+
+		"conjecture or of any statement about all integers. A claim about every n below a bound needs, "+
+		"besides this sieve, a search of the survivor classes.", f.J, f.Survivors, f.J)
+}

@@ -1,0 +1,78 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+
+	"descent/cert"
+	"descent/emit"
+)
+
+func (c *cli) emit(ctx context.Context, args []string) int {
+	if len(args) == 0 || args[0] != "sieve" {
+		c.errorf("emit: want a certificate kind: descent emit sieve ...")
+		return exitUsage
+	}
+	fs := c.flags("emit sieve", "emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] -o FILE")
+	k := fs.Int("k", 24, "modulus exponent: the sieve covers the residues mod 2^`K` (1 to 64)")
+	j := fs.Int("j", 0, "step budget `J` <= K: classes may close at steps 1..J (default K)")
+	mapFlag := fs.String("map", "3n+1", "the `map` T: n/2 for even n, (an+b)/2 for odd n, written an+b or an-b")
+	capFlag := fs.Uint("cap", emit.DefaultCap, "step `cap` for deciding the fate of each exception")
+	workers := fs.Int("workers", 0, "parallel chunk encoders (default: all cores)")
+	out := fs.String("o", "", "write the certificate to `FILE`")
+	if code, stop := parse(fs, args[1:]); stop {
+		return code
+	}
+	if fs.NArg() > 0 {
+		c.errorf("emit sieve: unexpected argument %q", fs.Arg(0))
+		return exitUsage
+	}
+	if *out == "" {
+		c.errorf("emit sieve: no output file; give -o FILE")
+		return exitUsage
+	}
+	m, err := cert.ParseMap(*mapFlag)
+	if err != nil {
+		c.errorf("emit sieve: %v", err)
+		return exitUsage
+	}
+	if *j == 0 {
+		*j = *k
+	}
+	if *k < 1 || *k > cert.MaxK || *j < 1 || *j > *k {
+		c.errorf("emit sieve: -k %d -j %d: want 1 <= j <= k <= %d", *k, *j, cert.MaxK)
+		return exitUsage
+	}
+	if *capFlag < 1 || *capFlag > cert.MaxCap {
+		c.errorf("emit sieve: -cap %d: want 1 to %d", *capFlag, cert.MaxCap)
+		return exitUsage
+	}
+
+	f, err := createAtomic(*out)
+	if err != nil {
+		c.errorf("emit sieve: %v", err)
+		return exitUsage
+	}
+	update, finish := c.progress("chunks")
+	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag)},
+		emit.Options{Workers: *workers, Progress: update})
+	finish()
+	if err == nil {
+		err = f.commit()
+	} else {
+		f.abort()
+	}
+	if err != nil {
+		if errors.Is(err, context.Canceled) {
+			c.errorf("emit sieve: interrupted; %s was not written", *out)
+		} else {
+			c.errorf("emit sieve: %s: %v", *out, err)
+		}
+		return exitUsage
+	}
+	h := res.Header
+	fmt.Fprintf(c.stdout, "%s: sieve certificate, %d bytes\n  root       %v\n  claim      %s\n",
+		*out, res.Size, res.Root, factsFromHeader(h).summary())
+	return exitOK
+}

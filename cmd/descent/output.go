@@ -1,0 +1,84 @@
+package main
+
+import (
+	"os"
+	"path/filepath"
+
+	"github.com/schollz/progressbar/v3"
+	"golang.org/x/term"
+)
+
+// atomicFile is written under a temporary name beside its target and
+// renamed onto the target only once the work succeeded, so a failed or
+// interrupted run never leaves a file at the target path.
+type atomicFile struct {
+	*os.File
+	target string
+}
+
+func createAtomic(target string) (*atomicFile, error) {
+	dir, base := filepath.Split(target)
+	if dir == "" {
+		dir = "."
+	}
+	f, err := os.CreateTemp(dir, "."+base+".partial-*")
+	if err != nil {
+		return nil, err
+	}
+	return &atomicFile{File: f, target: target}, nil
+}
+
+// commit makes the file durable and moves it onto the target.
+func (f *atomicFile) commit() error {
+	if err := f.Sync(); err != nil {
+		f.abort()
+		return err
+	}
+	if err := f.Close(); err != nil {
+		os.Remove(f.Name())
+		return err
+	}
+	if err := os.Chmod(f.Name(), 0o644); err != nil {
+		os.Remove(f.Name())
+		return err
+	}
+	if err := os.Rename(f.Name(), f.target); err != nil {
+		os.Remove(f.Name())
+		return err
+	}
+	return nil
+}
+
+// abort removes the temporary file.
+func (f *atomicFile) abort() {
+	f.Close()
+	os.Remove(f.Name())
+}
+
+func isTerminal(f *os.File) bool { return term.IsTerminal(int(f.Fd())) }
+
+// progress returns a callback that draws a bar on stderr when it is a
+// terminal, and nil otherwise, so logs and pipes get no cursor codes.
+func (c *cli) progress(what string) (func(done, total int), func()) {
+	if !c.stderrTTY {
+		return nil, func() {}
+	}
+	var bar *progressbar.ProgressBar
+	update := func(done, total int) {
+		if bar == nil {
+			bar = progressbar.NewOptions(total,
+				progressbar.OptionSetWriter(c.stderr),
+				progressbar.OptionSetDescription(what),
+				progressbar.OptionShowCount(),
+				progressbar.OptionSetPredictTime(true),
+				progressbar.OptionClearOnFinish(),
+				progressbar.OptionThrottle(100e6))
+		}
+		bar.Set(done)
+	}
+	return update, func() {
+		if bar != nil {
+			bar.Finish()
+		}
+	}
+}

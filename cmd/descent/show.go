@@ -1,0 +1,145 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"os"
+	"strings"
+	"text/tabwriter"
+
+	"descent/cert"
+	"descent/check"
+)
+
+// showReport is the -json form of show. It states the claim as written in
+// the header; Verified is always false, since show re-derives nothing.
+type showReport struct {
+	File       string                  `json:"file"`
+	Kind       string                  `json:"kind"`
+	Root       string                  `json:"root"`
+	Verified   bool                    `json:"verified"`
+	Map        string                  `json:"map"`
+	K          int                     `json:"k"`
+	J          int                     `json:"j"`
+	Cap        uint32                  `json:"cap"`
+	Chunks     int                     `json:"chunks"`
+	Survivors  check.Num               `json:"survivors"`
+	ClosedAt   map[string]check.Num    `json:"closed_at"`
+	Exceptions []check.ExceptionReport `json:"exceptions"`
+	Claim      string                  `json:"claim"`
+	NotProven  string                  `json:"not_proven"`
+}
+
+func (c *cli) show(args []string) int {
+	fs := c.flags("show", "show [-json] FILE")
+	asJSON := fs.Bool("json", false, "write the claim as JSON")
+	if code, stop := parse(fs, args); stop {
+		return code
+	}
+	if fs.NArg() != 1 {
+		c.errorf("show: want exactly one certificate")
+		fs.Usage()
+		return exitUsage
+	}
+	path := fs.Arg(0)
+	h, root, err := readHeader(path)
+	if err != nil {
+		c.errorf("show: %s: %v", path, err)
+		if errors.Is(err, cert.ErrHashMismatch) {
+			fmt.Fprintf(c.stderr, "hint: the file is damaged or was altered; 'descent check %s' says where\n", path)
+			return exitInvalid
+		}
+		return exitUsage
+	}
+	f := factsFromHeader(h)
+	if *asJSON {
+		rep := showReport{File: path, Kind: "sieve", Root: root.String(), Map: f.Map, K: f.K, J: f.J, Cap: f.Cap,
+			Chunks: h.Chunks, Survivors: check.Num(fmt.Sprint(f.Survivors)), ClosedAt: map[string]check.Num{},
+			Exceptions: []check.ExceptionReport{}, Claim: f.sentence(), NotProven: f.caveat()}
+		for _, cl := range f.Closing {
+			rep.ClosedAt[fmt.Sprint(cl.Step)] = check.Num(fmt.Sprint(cl.Classes))
+		}
+		for _, e := range f.Exceptions {
+			rep.Exceptions = append(rep.Exceptions, check.ExceptionReport{N: check.Num(e.N), Fate: e.Fate, Steps: e.Steps, CycleMin: check.Num(e.CycleMin)})
+		}
+		b, _ := json.MarshalIndent(rep, "", "  ")
+		fmt.Fprintf(c.stdout, "%s\n", b)
+		return exitOK
+	}
+	c.printShow(path, h, root, f)
+	return exitOK
+}
+
+// readHeader reads the header and the stored tree, and checks that the
+// tree is consistent with the header; it reads no chunk.
+func readHeader(path string) (*cert.SieveHeader, cert.Hash, error) {
+	file, err := os.Open(path)
+	if err != nil {
+		return nil, cert.Hash{}, err
+	}
+	defer file.Close()
+	rd, err := cert.NewReader(file)
+	if err != nil {
+		return nil, cert.Hash{}, err
+	}
+	h, err := cert.ParseSieveHeader(rd.Header)
+	if err != nil {
+		return nil, cert.Hash{}, err
+	}
+	if err := rd.CheckTree(); err != nil {
+		return nil, cert.Hash{}, err
+	}
+	return h, rd.Root(), nil
+}
+
+func wrap(s string, width int, indent string) string {
+	var b strings.Builder
+	line := 0
+	for i, w := range strings.Fields(s) {
+		if i > 0 && line+1+len(w) > width {
+			b.WriteString("\n" + indent)
+			line = 0
+		} else if i > 0 {
+			b.WriteString(" ")
+			line++
+		}
+		b.WriteString(w)
+		line += len(w)
+	}
+	return indent + b.String()
+}
+
+func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f facts) {
+	w := c.stdout
+	fmt.Fprintf(w, "%s: descent sieve certificate\n\n", path)
+	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
+	fmt.Fprintf(tw, "  root\t%v\n", root)
+	fmt.Fprintf(tw, "  map\t%s\n", f.mapText())
+	fmt.Fprintf(tw, "  modulus\t2^%d (k = %d); classes may close at steps 1..%d (j = %d)\n", f.K, f.K, f.J, f.J)
+	fmt.Fprintf(tw, "  survivors\t%d of the 2^%d residues\n", f.Survivors, f.K)
+	fmt.Fprintf(tw, "  chunks\t%d: the top of the trie (depths 0..%d) and one per class open at depth %d\n", h.Chunks, cert.SplitDepth(f.J), cert.SplitDepth(f.J))
+	fmt.Fprintf(tw, "  fate cap\t%d steps\n", f.Cap)
+	tw.Flush()
+
+	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
+	fmt.Fprintf(w, "\nWhat it does not prove\n%s\n", wrap(f.caveat(), 76, "  "))
+
+	fmt.Fprintf(w, "\nClasses closing at each step\n")
+	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintf(tw, "  step t\tclasses mod 2^t\tresidues mod 2^%d\t\n", f.K)
+	for _, cl := range f.Closing {
+		fmt.Fprintf(tw, "  %d\t%d\t%d\t\n", cl.Step, cl.Classes, cl.Classes<<(f.K-cl.Step))
+	}
+	fmt.Fprintf(tw, "  survivors\t%d\t%d\t\n", f.Survivors>>(f.K-f.J), f.Survivors)
+	tw.Flush()
+
+	fmt.Fprintf(w, "\nExceptions: members at or below their class's threshold, decided by direct iteration\n")
+	if len(f.Exceptions) == 0 {
+		fmt.Fprintf(w, "  none\n")
+	}
+	for _, e := range f.Exceptions {
+		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap))
+	}
+	fmt.Fprintf(w, "\nThis is the claim as written in the file; 'descent check %s' re-derives it.\n", path)
+}
