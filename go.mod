@@ -3,7 +3,9 @@ module descent
 go 1.26.0
 
 require (
+	github.com/google/go-cmp v0.7.0
 	github.com/schollz/progressbar/v3 v3.19.1
+	github.com/stretchr/testify v1.12.1
 	golang.org/x/crypto v0.59.0
 	golang.org/x/sync v0.25.0
 	golang.org/x/term v0.48.0
@@ -12,5 +14,6 @@ require (
 require (
 	github.com/mitchellh/colorstring v0.0.0-20190213212951-d06e56a500db // indirect
 	github.com/rivo/uniseg v0.4.7 // indirect
+	go.yaml.in/yaml/v3 v3.0.5 // indirect
 	golang.org/x/sys v0.50.0 // indirect
 )

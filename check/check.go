@@ -52,7 +52,7 @@ func Check(r io.Reader, o Options) *Report {
 	// The header and the stored tree first: a changed byte there shows
 	// as a hash failure before any claim is read.
 	if got := leafHash(f.header); got != f.tree[0][0] {
-		return rep.fail(invalid("hash", Where{Offset: 0}, "the header hashes to %s; the stored tree says %s", short(got), short(f.tree[0][0])))
+		return rep.fail(invalid("hash", Where{Offset: new(int64)}, "the header hashes to %s; the stored tree says %s", short(got), short(f.tree[0][0])))
 	}
 	if fl := verifyTree(f.tree); fl != nil {
 		return rep.fail(fl)
@@ -205,7 +205,7 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 func (sv *sieve) leaf(f *file, i int, rec []byte) *Failure {
 	if got := leafHash(rec); got != f.tree[0][i+1] {
 		c := i
-		return invalid("hash", Where{Chunk: &c, Offset: f.offsets[i], Expected: short(f.tree[0][i+1]), Found: short(got)},
+		return invalid("hash", Where{Chunk: &c, Offset: &f.offsets[i], Expected: short(f.tree[0][i+1]), Found: short(got)},
 			"the chunk hashes to %s; the stored tree says %s", short(got), short(f.tree[0][i+1]))
 	}
 	return nil

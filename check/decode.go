@@ -28,7 +28,7 @@ const (
 	maxCap       = 1 << 24
 	maxNat       = 255
 	maxK         = 64
-	chunkHead    = 12
+	chunkHead    = 14
 )
 
 type exception struct {
@@ -68,7 +68,7 @@ func (f *file) read(n int64, what string) ([]byte, *Failure) {
 	f.off += got
 	if got < n {
 		if err != nil && err != io.EOF {
-			return nil, &Failure{Class: ErrMalformed, Reason: "malformed", Msg: "read: " + err.Error(), Where: Where{Offset: f.off}}
+			return nil, malformed(f.off, "read: %v", err)
 		}
 		return nil, malformed(f.off, "file ends inside the %s (%d of %d bytes)", what, got, n)
 	}

@@ -52,7 +52,7 @@ var Reasons = map[string]string{
 
 // Where locates a failure. Zero fields are unknown or do not apply.
 type Where struct {
-	Offset   int64  `json:"offset,omitempty"`
+	Offset   *int64 `json:"offset,omitempty"` // a byte offset in the file
 	Chunk    *int   `json:"chunk,omitempty"`
 	Residue  string `json:"residue,omitempty"` // the class Residue mod 2^Step
 	Step     int    `json:"step,omitempty"`
@@ -73,8 +73,8 @@ func (w Where) String() string {
 	if w.N != "" {
 		parts = append(parts, "n = "+w.N)
 	}
-	if w.Offset > 0 {
-		parts = append(parts, fmt.Sprintf("offset %d", w.Offset))
+	if w.Offset != nil {
+		parts = append(parts, fmt.Sprintf("offset %d", *w.Offset))
 	}
 	return strings.Join(parts, ", ")
 }
@@ -140,7 +140,7 @@ func (r *Report) fail(f *Failure) *Report {
 }
 
 func malformed(off int64, format string, args ...any) *Failure {
-	return &Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf(format, args...), Where: Where{Offset: off}}
+	return &Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf(format, args...), Where: Where{Offset: &off}}
 }
 
 func invalid(reason string, w Where, format string, args ...any) *Failure {

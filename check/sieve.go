@@ -1,6 +1,7 @@
 package check
 
 import (
+	"encoding/binary"
 	"fmt"
 	"math/big"
 	"strconv"
@@ -69,7 +70,9 @@ type walk struct {
 	chunk     int
 	code      []byte
 	nbit, pos uint64
-	end       int
+	start     uint64 // the residue the chunk starts at
+	begin     int    // the depth it starts at
+	end       int    // the depth of its leaves
 	survivors uint64
 	closed    []uint64 // closed[t]
 	stubs     []stubState
@@ -166,50 +169,71 @@ func (w *walk) falseClosing(c uint64, t, s int, oddStep bool) *Failure {
 		"after %d steps the class has %d odd steps and %s >= 2^%d; it has not closed yet", t, s, sv.power(s), t)
 }
 
-// checkChunk verifies one chunk record at index i (0 is the top).
-func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo) (*walk, *Failure) {
+// frame parses the head of chunk record i (at file offset base) and sets
+// up a walk over its codes: the top chunk from depth 0 to D, the others
+// from D to j.
+func (sv *sieve) frame(i int, rec []byte, base int64) (*walk, *Failure) {
 	if len(rec) < chunkHead {
-		return nil, malformed(base, "chunk record of %d bytes is shorter than its %d-byte head", len(rec), chunkHead)
+		return nil, malformed(base, "chunk %d: a record of %d bytes is shorter than the %d-byte chunk head", i, len(rec), chunkHead)
 	}
-	res := uint64(rec[0])<<56 | uint64(rec[1])<<48 | uint64(rec[2])<<40 | uint64(rec[3])<<32 |
-		uint64(rec[4])<<24 | uint64(rec[5])<<16 | uint64(rec[6])<<8 | uint64(rec[7])
-	nbit := uint64(rec[8])<<24 | uint64(rec[9])<<16 | uint64(rec[10])<<8 | uint64(rec[11])
-	code := rec[chunkHead:]
-	if uint64(len(code)) != (nbit+7)/8 {
-		return nil, malformed(base+8, "chunk %d: %d code bits need %d bytes, the record has %d", i, nbit, (nbit+7)/8, len(code))
+	w := &walk{sv: sv, chunk: i, start: binary.BigEndian.Uint64(rec), nbit: uint64(binary.BigEndian.Uint32(rec[10:])),
+		code: rec[chunkHead:], begin: int(rec[8]), end: int(rec[9])}
+	if w.begin > w.end || w.end > maxK {
+		return nil, malformed(base+8, "chunk %d spans depths %d to %d", i, w.begin, w.end)
 	}
-	if nbit%8 != 0 && code[len(code)-1]<<(nbit%8) != 0 {
+	if uint64(len(w.code)) != (w.nbit+7)/8 {
+		return nil, malformed(base+10, "chunk %d: %d code bits need %d bytes, the record has %d", i, w.nbit, (w.nbit+7)/8, len(w.code))
+	}
+	if w.nbit%8 != 0 && w.code[len(w.code)-1]<<(w.nbit%8) != 0 {
 		return nil, malformed(base+int64(len(rec))-1, "chunk %d: padding bits are not zero", i)
 	}
-	w := &walk{sv: sv, chunk: i, code: code, nbit: nbit, closed: make([]uint64, sv.j+1)}
-	start := stubState{}
-	if i == 0 {
-		w.end = sv.d
-		if res != 0 {
-			return nil, invalid("residue", w.where(res, 0, "top chunk", "0", strconv.FormatUint(res, 10)), "the top chunk must start at the root, residue 0")
-		}
-	} else {
-		w.end, w.memo = sv.j, m
-		if res != want.res {
-			return nil, invalid("residue", w.where(res, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(res, 10)),
-				"chunk %d must cover class %d mod 2^%d, the %d-th open class at depth %d", i, want.res, sv.d, i, sv.d)
-		}
-		start = *want
-	}
-	if !w.visit(startDepth(i, sv.d), start.s, start.v, start.res) {
-		return nil, w.fail
-	}
-	if w.pos != w.nbit {
-		return nil, invalid("depth", w.where(start.res, startDepth(i, sv.d), "", "", ""),
-			"%d code bits are left after the last class of depth %d", w.nbit-w.pos, w.end)
+	if w.begin < 64 && w.start>>w.begin != 0 {
+		return nil, malformed(base, "chunk %d starts at residue %d, which does not fit below 2^%d", i, w.start, w.begin)
 	}
 	return w, nil
 }
 
-// startDepth is the depth at which chunk i starts.
-func startDepth(i, d int) int {
-	if i == 0 {
-		return 0
+// depths says whether chunk i spans the depths the header calls for: 0..D
+// for the top chunk, D..j for the others.
+func (sv *sieve) depths(w *walk) *Failure {
+	from, to := sv.d, sv.j
+	if w.chunk == 0 {
+		from, to = 0, sv.d
 	}
-	return d
+	if w.begin != from || w.end != to {
+		c := w.chunk
+		return invalid("depth", Where{Chunk: &c, Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", w.begin, w.end)},
+			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", w.begin, w.end, sv.j, sv.d, from, to)
+	}
+	return nil
+}
+
+// checkChunk verifies chunk record i; want is the stub it must start at
+// (nil for the top chunk).
+func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo) (*walk, *Failure) {
+	w, fl := sv.frame(i, rec, base)
+	if fl != nil {
+		return nil, fl
+	}
+	if fl := sv.depths(w); fl != nil {
+		return nil, fl
+	}
+	w.closed = make([]uint64, sv.j+1)
+	start := stubState{}
+	if i > 0 {
+		w.memo = m
+		if w.start != want.res {
+			return nil, invalid("residue", w.where(w.start, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(w.start, 10)),
+				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.res, sv.d, i, sv.d)
+		}
+		start = *want
+	}
+	if !w.visit(w.begin, start.s, start.v, start.res) {
+		return nil, w.fail
+	}
+	if w.pos != w.nbit {
+		return nil, invalid("depth", w.where(start.res, w.begin, "", "", ""),
+			"%d code bits are left after the last class of depth %d", w.nbit-w.pos, w.end)
+	}
+	return w, nil
 }

@@ -86,7 +86,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err := top.top(0, 0, 0, 0); err != nil {
 		return nil, err
 	}
-	rec := cert.Chunk{NBits: top.w.Len(), Payload: top.w.Bytes()}.Marshal()
+	rec := cert.Chunk{From: 0, To: d, NBits: top.w.Len(), Payload: top.w.Bytes()}.Marshal()
 	if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
 		return nil, err
 	}
@@ -121,7 +121,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 			for st := range jobs {
 				e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
 				e.node(d, st.s, st.v)
-				rec := cert.Chunk{Residue: st.res, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
+				rec := cert.Chunk{Residue: st.res, From: d, To: r.j, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
 				st.out <- chunkOut{rec: rec, leaf: cert.LeafHash(rec), tally: e.tally}
 			}
 			return nil

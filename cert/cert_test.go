@@ -1,0 +1,292 @@
+package cert_test
+
+import (
+	"bytes"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"io"
+	"math/big"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"reflect"
+	"regexp"
+	"strings"
+	"testing"
+
+	"github.com/google/go-cmp/cmp"
+	"github.com/stretchr/testify/require"
+	"golang.org/x/crypto/blake2b"
+
+	"descent/cert"
+	"descent/check"
+)
+
+// mth is the Merkle tree hash of RFC 6962, section 2.1, written from the
+// RFC's recursive definition, as a reference for the level-by-level tree.
+func mth(leaves [][]byte) [32]byte {
+	if len(leaves) == 1 {
+		return blake2b.Sum256(append([]byte{0}, leaves[0]...))
+	}
+	k := 1
+	for k*2 < len(leaves) {
+		k *= 2
+	}
+	l, r := mth(leaves[:k]), mth(leaves[k:])
+	return blake2b.Sum256(append(append([]byte{1}, l[:]...), r[:]...))
+}
+
+func TestTreeIsRFC6962(t *testing.T) {
+	for n := 1; n <= 70; n++ {
+		var data [][]byte
+		var leaves []cert.Hash
+		for i := range n {
+			d := []byte{byte(i), byte(n)}
+			data = append(data, d)
+			leaves = append(leaves, cert.LeafHash(d))
+		}
+		levels := cert.Levels(leaves)
+		root := levels[len(levels)-1][0]
+		require.Equal(t, mth(data), [32]byte(root), "n = %d", n)
+		for i := range n {
+			path := cert.AuditPath(levels, i)
+			require.Len(t, path, cert.AuditPathLen(i, n))
+			require.NoError(t, cert.VerifyAuditPath(leaves[i], i, n, path, root))
+			if len(path) > 0 {
+				bad := append([]cert.Hash(nil), path...)
+				bad[0][3] ^= 1
+				require.ErrorIs(t, cert.VerifyAuditPath(leaves[i], i, n, bad, root), cert.ErrAuditPath)
+				require.Error(t, cert.VerifyAuditPath(leaves[i], i, n, path[1:], root), "short path")
+			}
+			if n > 1 {
+				require.Error(t, cert.VerifyAuditPath(leaves[i], (i+1)%n, n, path, root), "wrong index")
+			}
+		}
+	}
+}
+
+func TestBitWriter(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	var w cert.BitWriter
+	var want strings.Builder
+	for range 2000 {
+		n := uint(rng.IntN(65))
+		x := rng.Uint64()
+		w.WriteBits(x, n)
+		for i := int(n) - 1; i >= 0; i-- {
+			want.WriteByte('0' + byte(x>>i&1))
+		}
+	}
+	var got strings.Builder
+	for _, b := range w.Bytes() {
+		for i := 7; i >= 0; i-- {
+			got.WriteByte('0' + b>>i&1)
+		}
+	}
+	require.EqualValues(t, want.Len(), w.Len())
+	require.Equal(t, want.String(), got.String()[:want.Len()])
+	require.Equal(t, strings.Repeat("0", got.Len()-want.Len()), got.String()[want.Len():], "padding")
+
+	var w2 cert.BitWriter
+	w2.WriteBits(1, 3)
+	w2.AppendString(w.Words(), uint(w.Len()))
+	require.Equal(t, "001"+want.String(), bits(w2.Bytes())[:3+want.Len()])
+}
+
+func bits(b []byte) string {
+	var s strings.Builder
+	for _, x := range b {
+		for i := 7; i >= 0; i-- {
+			s.WriteByte('0' + x>>i&1)
+		}
+	}
+	return s.String()
+}
+
+func header() *cert.SieveHeader {
+	return &cert.SieveHeader{Map: cert.Map{A: 5, B: 1}, K: 9, J: 8, Cap: 50, Chunks: 3, Survivors: 40,
+		ClosedAt: []uint64{1, 0, 1, 0, 2, 0, 5, 0},
+		Exceptions: []cert.Exception{
+			{N: big.NewInt(1), Fate: cert.Cycle, CycleMin: big.NewInt(1)},
+			{N: big.NewInt(3), Fate: cert.Descends, Steps: 3},
+			{N: new(big.Int).Lsh(big.NewInt(1), 300), Fate: cert.Undecided},
+		}}
+}
+
+func TestHeaderRoundTrip(t *testing.T) {
+	b, err := header().Marshal()
+	require.NoError(t, err)
+	h, err := cert.ParseSieveHeader(b)
+	require.NoError(t, err)
+	require.Empty(t, cmp.Diff(header(), h, cmp.Comparer(func(x, y *big.Int) bool { return x.Cmp(y) == 0 })))
+	again, err := h.Marshal()
+	require.NoError(t, err)
+	require.Equal(t, b, again)
+}
+
+func TestHeaderRejectsWhatIsNotCanonical(t *testing.T) {
+	for _, c := range []struct {
+		name string
+		edit func(*cert.SieveHeader)
+	}{
+		{"even multiplier", func(h *cert.SieveHeader) { h.Map.A = 4 }},
+		{"even constant", func(h *cert.SieveHeader) { h.Map.B = 2 }},
+		{"constant too negative", func(h *cert.SieveHeader) { h.Map.B = -5 }},
+		{"j above k", func(h *cert.SieveHeader) { h.J = 10; h.ClosedAt = make([]uint64, 10) }},
+		{"unordered exceptions", func(h *cert.SieveHeader) { h.Exceptions[0], h.Exceptions[1] = h.Exceptions[1], h.Exceptions[0] }},
+		{"descent beyond the cap", func(h *cert.SieveHeader) { h.Exceptions[1].Steps = 51 }},
+		{"cycle below n", func(h *cert.SieveHeader) { h.Exceptions[0].N = big.NewInt(2) }},
+		{"cap zero", func(h *cert.SieveHeader) { h.Cap = 0 }},
+		{"too many chunks", func(h *cert.SieveHeader) { h.Chunks = 18 }},
+	} {
+		h := header()
+		c.edit(h)
+		_, err := h.Marshal()
+		require.Error(t, err, c.name)
+	}
+	good, err := header().Marshal()
+	require.NoError(t, err)
+	// A natural with a leading zero byte: rewrite n = 1 (01 01) as 02 00 01.
+	i := bytes.Index(good, []byte{1, 1, 2, 1, 1})
+	require.Positive(t, i)
+	bad := append(append(append([]byte(nil), good[:i]...), 2, 0), good[i+1:]...)
+	bad[17]++ // the body length
+	_, err = cert.ParseSieveHeader(bad)
+	require.ErrorIs(t, err, cert.ErrMalformed)
+	require.Contains(t, err.Error(), "leading zero")
+	for n := range len(good) {
+		_, err := cert.ParseSieveHeader(good[:n])
+		require.ErrorIs(t, err, cert.ErrMalformed, "truncated to %d bytes", n)
+	}
+}
+
+func TestParseMap(t *testing.T) {
+	for s, want := range map[string]cert.Map{"3n+1": {3, 1}, "3n-1": {3, -1}, "5n+1": {5, 1}, "3n+5": {3, 5}, " 7n + 3 ": {7, 3}} {
+		m, err := cert.ParseMap(s)
+		require.NoError(t, err, s)
+		require.Equal(t, want, m)
+		again, err := cert.ParseMap(m.String())
+		require.NoError(t, err)
+		require.Equal(t, m, again)
+	}
+	for _, s := range []string{"", "n+1", "3n", "3n+", "4n+1", "3n+2", "3n-3", "3x+1", "3n++1", "1n+1", "99999999999n+1"} {
+		_, err := cert.ParseMap(s)
+		require.Error(t, err, s)
+	}
+}
+
+func TestWorkedExampleHexInSpec(t *testing.T) {
+	// The hex dump in SPEC.md, section 5, is the file in testdata.
+	spec, err := os.ReadFile("SPEC.md")
+	require.NoError(t, err)
+	m := regexp.MustCompile(`(?s)<!-- hex:sieve-3n\+1-k4 -->\n(.*?)<!-- end hex -->`).FindSubmatch(spec)
+	require.NotNil(t, m, "no hex dump in SPEC.md")
+	var dump []byte
+	for _, line := range strings.Split(strings.TrimSpace(string(m[1])), "\n") {
+		// "OFFSET: hex groups  annotation", as xxd prints it.
+		_, rest, ok := strings.Cut(line, ": ")
+		require.True(t, ok, line)
+		groups, _, _ := strings.Cut(rest, "  ")
+		b, err := hex.DecodeString(strings.ReplaceAll(groups, " ", ""))
+		require.NoError(t, err, line)
+		dump = append(dump, b...)
+	}
+	file, err := os.ReadFile(filepath.Join("..", "testdata", "sieve-3n+1-k4.dcert"))
+	require.NoError(t, err)
+	require.Equal(t, file, dump)
+	rd, err := cert.NewReader(bytes.NewReader(file))
+	require.NoError(t, err)
+	require.NoError(t, rd.CheckTree())
+	for _, h := range []cert.Hash{rd.Root(), rd.Levels[0][0], rd.Levels[0][1], rd.Levels[0][2], rd.Levels[1][0]} {
+		require.Contains(t, string(spec), h.String())
+	}
+}
+
+var vectors = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert"}
+
+// decodeWithCert reads a whole certificate with this package, in the same
+// shape as check.Decode, for comparison.
+func decodeWithCert(b []byte) (*check.Decoded, error) {
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	if err != nil {
+		return nil, err
+	}
+	h, err := cert.ParseSieveHeader(rd.Header)
+	if err != nil {
+		return nil, err
+	}
+	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
+		Survivors: h.Survivors, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}}
+	for _, e := range h.Exceptions {
+		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
+		if e.Fate == cert.Cycle {
+			x.CycleMin = check.Num(e.CycleMin.String())
+		}
+		d.Exceptions = append(d.Exceptions, x)
+	}
+	for _, l := range rd.Levels {
+		hs := make([][32]byte, len(l))
+		for i := range l {
+			hs[i] = l[i]
+		}
+		d.Tree = append(d.Tree, hs)
+	}
+	split := cert.SplitDepth(h.J)
+	for i := 0; ; i++ {
+		rec, err := rd.Next()
+		if errors.Is(err, io.EOF) {
+			return d, nil
+		}
+		if err != nil {
+			return nil, err
+		}
+		c, err := cert.ParseChunk(rec, rd.Offs[i])
+		if err != nil {
+			return nil, err
+		}
+		dc := check.DecodedChunk{Residue: c.Residue, Bits: c.NBits}
+		from, to := split, h.J
+		if i == 0 {
+			from, to = 0, split
+		}
+		if c.From != from || c.To != to {
+			return nil, fmt.Errorf("chunk %d spans depths %d..%d, want %d..%d", i, c.From, c.To, from, to)
+		}
+		if err := c.Walk(func(cl cert.Class) error {
+			dc.Leaves = append(dc.Leaves, check.DecodedClass{Residue: cl.Residue, Depth: cl.Depth, Closed: cl.Closed})
+			return nil
+		}); err != nil {
+			return nil, err
+		}
+		d.Chunks = append(d.Chunks, dc)
+	}
+}
+
+func FuzzDecodersAgree(f *testing.F) {
+	seeds := 0
+	for _, name := range vectors {
+		b, err := os.ReadFile(filepath.Join("..", "testdata", name))
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(b)
+		seeds++
+	}
+	if seeds == 0 {
+		f.Fatal("no seed certificates")
+	}
+	f.Fuzz(func(t *testing.T, b []byte) {
+		mine, err1 := decodeWithCert(b)
+		theirs, err2 := check.Decode(bytes.NewReader(b))
+		if (err1 == nil) != (err2 == nil) {
+			t.Fatalf("decoders disagree: cert says %v, check says %v", err1, err2)
+		}
+		if err1 != nil {
+			return
+		}
+		if !reflect.DeepEqual(mine, theirs) { // cmp.Diff only to explain: it is slow
+			t.Fatalf("decoders read different things (-cert +check):\n%s", cmp.Diff(mine, theirs))
+		}
+	})
+}

@@ -1,0 +1,175 @@
+package check
+
+import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"go/parser"
+	"go/token"
+	"math/big"
+	"os"
+	"path/filepath"
+	"runtime"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+func vector(t testing.TB, name string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join("..", "testdata", name))
+	require.NoError(t, err)
+	return b
+}
+
+var valid = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert"}
+
+func TestImportsOnlyStdlibAndBlake2b(t *testing.T) {
+	// The checker must stay independent of the code that writes
+	// certificates: its non-test files import the standard library and
+	// golang.org/x/crypto/blake2b, nothing else.
+	files, err := filepath.Glob("*.go")
+	require.NoError(t, err)
+	fset := token.NewFileSet()
+	for _, name := range files {
+		if strings.HasSuffix(name, "_test.go") {
+			continue
+		}
+		f, err := parser.ParseFile(fset, name, nil, parser.ImportsOnly)
+		require.NoError(t, err)
+		for _, imp := range f.Imports {
+			path := strings.Trim(imp.Path.Value, `"`)
+			std := !strings.Contains(strings.Split(path, "/")[0], ".")
+			require.True(t, std || path == "golang.org/x/crypto/blake2b", "%s imports %s", name, path)
+		}
+	}
+}
+
+func TestValidVectors(t *testing.T) {
+	for _, name := range valid {
+		for _, plain := range []bool{false, true} {
+			rep := Check(bytes.NewReader(vector(t, name)), Options{Plain: plain})
+			require.NoError(t, rep.Err(), "%s (plain %v)", name, plain)
+			require.True(t, rep.Valid)
+		}
+	}
+}
+
+func TestWorkedExampleRoot(t *testing.T) {
+	// The root given in SPEC.md, section 5.
+	rep := Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{})
+	require.Equal(t, "3139ce954f400b90f6719f6d7b12df7d39943960bcf7085d0f6f44ca880fb133", rep.Root)
+	require.Equal(t, Num("3"), rep.Survivors)
+	require.Equal(t, map[string]Num{"1": "1", "2": "1", "4": "1"}, rep.ClosedAt)
+
+	root, err := ParseRoot(rep.Root)
+	require.NoError(t, err)
+	require.NoError(t, Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{Root: &root}).Err())
+	root[0] ^= 1
+	rep = Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{Root: &root})
+	require.ErrorIs(t, rep.Err(), ErrInvalid)
+	require.Equal(t, "root", rep.Reason)
+}
+
+func TestEverySingleBitFlipIsRejected(t *testing.T) {
+	good := vector(t, "sieve-3n+1-k10.dcert")
+	for i := range len(good) * 8 {
+		bad := bytes.Clone(good)
+		bad[i/8] ^= 0x80 >> (i % 8)
+		var verdicts [2]string
+		for p, plain := range []bool{false, true} {
+			rep := Check(bytes.NewReader(bad), Options{Plain: plain})
+			err := rep.Err()
+			require.Error(t, err, "bit %d of byte %d flipped: accepted", i%8, i/8)
+			require.True(t, errors.Is(err, ErrInvalid) || errors.Is(err, ErrMalformed), "bit %d: %v", i, err)
+			verdicts[p] = rep.Reason + ": " + err.Error()
+		}
+		require.Equal(t, verdicts[1], verdicts[0], "the memo changed the verdict for bit %d", i)
+	}
+}
+
+func malformedAt(t *testing.T, b []byte, what string) *Report {
+	t.Helper()
+	rep := Check(bytes.NewReader(b), Options{})
+	require.ErrorIs(t, rep.Err(), ErrMalformed, what)
+	require.Contains(t, rep.Error, "offset", what)
+	return rep
+}
+
+func TestTruncatedAtEveryLength(t *testing.T) {
+	good := vector(t, "sieve-3n+1-k10.dcert")
+	for n := range len(good) {
+		malformedAt(t, good[:n], "truncated")
+	}
+}
+
+func TestBadPreamble(t *testing.T) {
+	good := vector(t, "sieve-3n+1-k4.dcert")
+	for _, c := range []struct {
+		name   string
+		edit   func(b []byte) []byte
+		reason string
+	}{
+		{"wrong magic", func(b []byte) []byte { b[0] = 'D'; return b }, "not a descent certificate"},
+		{"unknown version", func(b []byte) []byte { b[8] = 2; return b }, "unknown format version 2"},
+		{"unknown kind", func(b []byte) []byte { b[9] = 'x'; return b }, "unknown certificate kind"},
+		{"trailing bytes", func(b []byte) []byte { return append(b, 0) }, "follow the last record"},
+		{"leading garbage", func(b []byte) []byte { return append([]byte{0}, b...) }, "not a descent certificate"},
+		{"header longer than the file", func(b []byte) []byte { binary.BigEndian.PutUint32(b[14:], 1<<20); return b }, "file ends inside the header"},
+		{"header over the cap", func(b []byte) []byte { binary.BigEndian.PutUint32(b[14:], 1<<20+1); return b }, "over the cap"},
+	} {
+		rep := malformedAt(t, c.edit(bytes.Clone(good)), c.name)
+		require.Contains(t, rep.Error, c.reason, c.name)
+	}
+}
+
+// handHeader builds a sieve header for 3n+1 byte by byte, from SPEC.md.
+func handHeader(records uint32, k, j int) []byte {
+	body := binary.BigEndian.AppendUint32(nil, 3)
+	body = binary.BigEndian.AppendUint32(body, 1)
+	body = append(body, byte(k), byte(j))
+	body = binary.BigEndian.AppendUint32(body, 100000)
+	body = binary.BigEndian.AppendUint64(body, 1)
+	body = append(body, make([]byte, 8*j)...)
+	body = binary.BigEndian.AppendUint32(body, 0)
+	b := append([]byte(magic), version, kindSieve)
+	b = binary.BigEndian.AppendUint32(b, records)
+	b = binary.BigEndian.AppendUint32(b, uint32(len(body)))
+	return append(b, body...)
+}
+
+func TestLengthsBeyondTheFileAllocateLittle(t *testing.T) {
+	// A 1 KiB file whose preamble declares 2^24 records claims a stored
+	// tree of 2^25 hashes (1 GiB); reading it must fail at the end of the
+	// file, naming the offset, without allocating anywhere near that.
+	b := handHeader(1<<24, 64, 64)
+	b = append(b, make([]byte, 1024-len(b))...)
+	var before, after runtime.MemStats
+	runtime.GC()
+	runtime.ReadMemStats(&before)
+	rep := Check(bytes.NewReader(b), Options{})
+	runtime.ReadMemStats(&after)
+	require.ErrorIs(t, rep.Err(), ErrMalformed)
+	require.Contains(t, rep.Error, "offset 1024")
+	require.Contains(t, rep.Error, "file ends inside the stored tree")
+	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(1<<20), "allocated %d bytes", after.TotalAlloc-before.TotalAlloc)
+}
+
+func TestFatesByTheCheckersOwnArithmetic(t *testing.T) {
+	sv := newSieve(&sieveHeader{a: 3, b: 1, k: 8, j: 8, cap: 1000})
+	// OEIS A126241: under T, 27 first drops below itself after 59 steps.
+	e := sv.fateOf(big.NewInt(27))
+	require.Equal(t, byte(1), e.fate)
+	require.EqualValues(t, 59, e.steps)
+	// From memory: 5n+1 has cycles through 13 (13, 33, 83, 208, 104, 52,
+	// 26) and 17 (17, 43, 108, 54, 27, 68, 34).
+	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1000})
+	for _, n := range []int64{1, 13, 17} {
+		e := sv.fateOf(big.NewInt(n))
+		require.Equal(t, byte(2), e.fate, "n = %d", n)
+		require.Equal(t, n, e.cycleMin.Int64())
+	}
+	// 5n+1, n = 7: believed to diverge; within the cap it is undecided.
+	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
+}

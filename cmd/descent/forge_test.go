@@ -1,0 +1,289 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"io"
+	"math/big"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"descent/cert"
+)
+
+// Forgeries: certificates whose hashes and root are recomputed after a
+// claim was changed, so that only re-derivation can catch them. They are
+// built here with package cert, never by the checker's code.
+
+type memFile struct{ b []byte }
+
+func (m *memFile) WriteAt(p []byte, off int64) (int, error) {
+	if end := int(off) + len(p); end > len(m.b) {
+		m.b = append(m.b, make([]byte, end-len(m.b))...)
+	}
+	return copy(m.b[off:], p), nil
+}
+
+// cut is a certificate taken apart.
+type cut struct {
+	h      *cert.SieveHeader
+	chunks []cert.Chunk
+}
+
+func open(t *testing.T, b []byte) *cut {
+	t.Helper()
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	require.NoError(t, err)
+	h, err := cert.ParseSieveHeader(rd.Header)
+	require.NoError(t, err)
+	c := &cut{h: h}
+	for {
+		rec, err := rd.Next()
+		if err == io.EOF {
+			return c
+		}
+		require.NoError(t, err)
+		ch, err := cert.ParseChunk(rec, 0)
+		require.NoError(t, err)
+		c.chunks = append(c.chunks, ch)
+	}
+}
+
+// seal writes the certificate with every hash recomputed.
+func (c *cut) seal(t *testing.T) []byte {
+	t.Helper()
+	c.h.Chunks = len(c.chunks)
+	hb, err := c.h.Marshal()
+	require.NoError(t, err)
+	var f memFile
+	w, err := cert.NewWriter(&f, hb)
+	require.NoError(t, err)
+	for _, ch := range c.chunks {
+		rec := ch.Marshal()
+		require.NoError(t, w.WriteRecord(rec, cert.LeafHash(rec)))
+	}
+	_, _, err = w.Close()
+	require.NoError(t, err)
+	return f.b
+}
+
+// node is a parsed trie code: split (code 0) has two open children;
+// otherwise child closed closes and kids[1-closed] goes on. A nil *node
+// is an open leaf.
+type node struct {
+	split  bool
+	closed int
+	kids   [2]*node
+}
+
+func parseCodes(t *testing.T, c cert.Chunk, from, to int) *node {
+	pos := uint64(0)
+	bit := func() int {
+		require.Less(t, pos, c.NBits)
+		b := int(c.Payload[pos/8]>>(7-pos%8)) & 1
+		pos++
+		return b
+	}
+	var parse func(d int) *node
+	parse = func(d int) *node {
+		if d == to {
+			return nil
+		}
+		n := &node{}
+		if bit() == 0 {
+			n.split = true
+			n.kids[0], n.kids[1] = parse(d+1), parse(d+1)
+		} else {
+			n.closed = bit()
+			n.kids[1-n.closed] = parse(d + 1)
+		}
+		return n
+	}
+	root := parse(from)
+	require.Equal(t, c.NBits, pos)
+	return root
+}
+
+func (n *node) encode(w *cert.BitWriter) {
+	if n == nil {
+		return
+	}
+	if n.split {
+		w.WriteBits(0, 1)
+		n.kids[0].encode(w)
+		n.kids[1].encode(w)
+		return
+	}
+	w.WriteBits(uint64(2|n.closed), 2)
+	n.kids[1-n.closed].encode(w)
+}
+
+func setCodes(c *cert.Chunk, root *node) {
+	var w cert.BitWriter
+	root.encode(&w)
+	c.NBits, c.Payload = w.Len(), w.Bytes()
+}
+
+// count returns the open leaves (at depth to) below n, which is at depth
+// d, and adds its closings by step to closed.
+func (n *node) count(d, to int, closed []uint64) uint64 {
+	if n == nil {
+		return 1
+	}
+	if n.split {
+		return n.kids[0].count(d+1, to, closed) + n.kids[1].count(d+1, to, closed)
+	}
+	closed[d+1]++
+	return n.kids[1-n.closed].count(d+1, to, closed)
+}
+
+// evenChild is the child of residue r mod 2^d whose step d+1 is even,
+// found by exact iteration.
+func evenChild(m cert.Map, r uint64, d int) int {
+	x := new(big.Int).SetUint64(r)
+	for range d {
+		if x.Bit(0) == 1 {
+			x.Mul(x, big.NewInt(int64(m.A))).Add(x, big.NewInt(int64(m.B))).Rsh(x, 1)
+		} else {
+			x.Rsh(x, 1)
+		}
+	}
+	return int(x.Bit(0))
+}
+
+// find walks the trie below n (residue r mod 2^d) in depth-first order
+// and returns the first node for which ok holds.
+func find(n *node, r uint64, d int, ok func(n *node, r uint64, d int) bool) (*node, uint64, int) {
+	if n == nil {
+		return nil, 0, 0
+	}
+	if ok(n, r, d) {
+		return n, r, d
+	}
+	for y, k := range n.kids {
+		if m, mr, md := find(k, r|uint64(y)<<d, d+1, ok); m != nil {
+			return m, mr, md
+		}
+	}
+	return nil, 0, 0
+}
+
+// checkJSON runs 'descent check -json' on b and returns the exit status
+// and the report.
+func checkJSON(t *testing.T, b []byte) (int, map[string]any) {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "forged.dcert")
+	require.NoError(t, os.WriteFile(path, b, 0o644))
+	var out, errb bytes.Buffer
+	c := &cli{stdout: &out, stderr: &errb}
+	code := c.run(context.Background(), []string{"check", "-json", path})
+	var rep map[string]any
+	require.NoError(t, json.Unmarshal(out.Bytes(), &rep), out.String())
+	return code, rep
+}
+
+func emitBytes(t *testing.T, args ...string) []byte {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "good.dcert")
+	var out, errb bytes.Buffer
+	c := &cli{stdout: &out, stderr: &errb}
+	require.Equal(t, exitOK, c.run(context.Background(), append(append([]string{"emit", "sieve"}, args...), "-o", path)), errb.String())
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	return b
+}
+
+func TestForgeriesAreCaughtWithTheRightReason(t *testing.T) {
+	good := emitBytes(t, "-k", "10")
+	code, rep := checkJSON(t, good)
+	require.Equal(t, exitOK, code)
+	require.Equal(t, true, rep["valid"])
+	d := cert.SplitDepth(10)
+
+	forgeries := []struct {
+		name   string
+		forge  func(c *cut)
+		reason string
+	}{
+		{"a survivor dropped", func(c *cut) {
+			// A class at depth 9 whose two children survive: claim its even
+			// child closes at step 10.
+			for i := 1; i < len(c.chunks); i++ {
+				root := parseCodes(t, c.chunks[i], d, 10)
+				n, r, nd := find(root, c.chunks[i].Residue, d, func(n *node, _ uint64, nd int) bool { return n.split && nd == 9 })
+				if n == nil {
+					continue
+				}
+				n.split, n.closed = false, evenChild(c.h.Map, r, nd)
+				n.kids = [2]*node{}
+				setCodes(&c.chunks[i], root)
+				c.h.Survivors--
+				c.h.ClosedAt[9]++
+				return
+			}
+			t.Fatal("no class with two survivors")
+		}, "survivor-dropped"},
+		{"a class claimed closed one step early", func(c *cut) {
+			// A class P whose even child closes: claim instead that P closes
+			// one step earlier, as the even child of its parent.
+			for i := 1; i < len(c.chunks); i++ {
+				root := parseCodes(t, c.chunks[i], d, 10)
+				g, r, gd := find(root, c.chunks[i].Residue, d, func(n *node, r uint64, nd int) bool {
+					if !n.split {
+						return false
+					}
+					e := evenChild(c.h.Map, r, nd)
+					p := n.kids[e]
+					return p != nil && !p.split && p.closed == evenChild(c.h.Map, r|uint64(e)<<nd, nd+1)
+				})
+				if g == nil {
+					continue
+				}
+				e := evenChild(c.h.Map, r, gd)
+				closed := make([]uint64, 11)
+				open := g.kids[e].count(gd+1, 10, closed)
+				c.h.Survivors -= open
+				for s := 1; s <= 10; s++ {
+					c.h.ClosedAt[s-1] -= closed[s]
+				}
+				c.h.ClosedAt[gd]++ // step gd+1
+				g.split, g.closed, g.kids[e] = false, e, nil
+				setCodes(&c.chunks[i], root)
+				return
+			}
+			t.Fatal("no class to close early")
+		}, "closed-early"},
+		{"a wrong survivor count", func(c *cut) { c.h.Survivors++ }, "count"},
+		{"a wrong closing count", func(c *cut) { c.h.ClosedAt[4]++ }, "count"},
+		{"a different map in the header", func(c *cut) { c.h.Map = cert.Map{A: 3, B: -1} }, "closed-odd"},
+		{"another multiplier in the header", func(c *cut) { c.h.Map = cert.Map{A: 5, B: 1} }, "closed-odd"},
+		{"a missing exception", func(c *cut) { c.h.Exceptions = nil }, "exception"},
+		{"an invented exception", func(c *cut) {
+			c.h.Exceptions = append(c.h.Exceptions, cert.Exception{N: big.NewInt(5), Fate: cert.Descends, Steps: 3})
+		}, "exception"},
+		{"an invented exception above the bound", func(c *cut) {
+			c.h.Exceptions = append(c.h.Exceptions, cert.Exception{N: big.NewInt(1000), Fate: cert.Undecided})
+		}, "exception"},
+		{"a wrong fate", func(c *cut) {
+			c.h.Exceptions[0] = cert.Exception{N: big.NewInt(1), Fate: cert.Descends, Steps: 2}
+		}, "exception"},
+		{"a wrong j", func(c *cut) { c.h.J = 9; c.h.ClosedAt = c.h.ClosedAt[:9] }, "depth"},
+		{"swapped chunks", func(c *cut) { c.chunks[1], c.chunks[2] = c.chunks[2], c.chunks[1] }, "residue"},
+		{"a chunk dropped", func(c *cut) { c.chunks = c.chunks[:len(c.chunks)-1] }, "count"},
+	}
+	for _, f := range forgeries {
+		t.Run(f.name, func(t *testing.T) {
+			c := open(t, good)
+			f.forge(c)
+			code, rep := checkJSON(t, c.seal(t))
+			require.Equal(t, exitInvalid, code, "%v", rep)
+			require.Equal(t, false, rep["valid"])
+			require.Equal(t, f.reason, rep["reason"], "%v", rep["error"])
+			require.NotEmpty(t, rep["where"])
+		})
+	}
+}
