@@ -1,0 +1,133 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"math/big"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"descent/cert"
+	"descent/check"
+	"descent/emit"
+)
+
+// Benchmarks of whole runs: emit and check a 3n+1 sieve certificate at
+// k = 24..36, each reporting ns per trie node and bytes per survivor, and
+// the plain single-threaded depth-first count of survivors (no encoding, no
+// hashing) that the speed targets are measured against.
+//
+//	go test ./cmd/descent -run '^$' -bench . -benchtime 5x -count 5
+
+var benchK = []int{24, 28, 32, 36}
+
+// trieNodes is the number of classes in the trie down to depth j, open or
+// closed: the root, and two children for every class open above depth j.
+// The open classes at each depth follow from the header's closing counts.
+func trieNodes(h *cert.SieveHeader) float64 {
+	nodes, open := 1.0, 1.0
+	for t := 1; t <= h.J; t++ {
+		nodes += 2 * open
+		open = 2*open - float64(h.ClosedAt[t-1])
+	}
+	return nodes
+}
+
+type plain struct {
+	j         int
+	pow       []uint64
+	closes    []int
+	nodes     uint64
+	survivors uint64
+}
+
+func newPlain(j int) *plain {
+	p := &plain{j: j}
+	x := big.NewInt(1)
+	for s := 0; s <= j; s++ {
+		p.pow = append(p.pow, x.Uint64())
+		p.closes = append(p.closes, x.BitLen())
+		x.Mul(x, big.NewInt(3))
+	}
+	return p
+}
+
+// walk is the plain depth-first count: one call per open class.
+func (p *plain) walk(t, s int, v uint64) {
+	p.nodes++
+	if t == p.j {
+		p.survivors++
+		return
+	}
+	for c := uint64(0); c < 2; c++ {
+		vc := v + c*p.pow[s]
+		if vc&1 == 0 {
+			if p.closes[s] <= t+1 {
+				p.nodes++ // a closed leaf
+				continue
+			}
+			p.walk(t+1, s, vc>>1)
+		} else {
+			p.walk(t+1, s+1, (3*vc+1)>>1)
+		}
+	}
+}
+
+func BenchmarkPlainCount(b *testing.B) {
+	for _, k := range benchK {
+		b.Run(fmt.Sprintf("k=%d", k), func(b *testing.B) {
+			var p *plain
+			for range b.N {
+				p = newPlain(k)
+				p.walk(0, 0, 0)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(p.nodes), "ns/node")
+			b.ReportMetric(float64(p.nodes), "nodes")
+			b.ReportMetric(float64(p.survivors), "survivors")
+		})
+	}
+}
+
+func emitFile(b *testing.B, k int, path string) *emit.Result {
+	f, err := os.Create(path)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer f.Close()
+	res, err := emit.Sieve(context.Background(), f, emit.SieveParams{Map: cert.Collatz, K: k, J: k}, emit.Options{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	return res
+}
+
+func BenchmarkEmit(b *testing.B) {
+	for _, k := range benchK {
+		b.Run(fmt.Sprintf("k=%d", k), func(b *testing.B) {
+			path := filepath.Join(b.TempDir(), "sieve.dcert")
+			var res *emit.Result
+			for range b.N {
+				res = emitFile(b, k, path)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/trieNodes(res.Header), "ns/node")
+			b.ReportMetric(8*float64(res.Size)/float64(res.Header.Survivors), "bits/survivor")
+		})
+	}
+}
+
+func BenchmarkCheck(b *testing.B) {
+	for _, k := range benchK {
+		b.Run(fmt.Sprintf("k=%d", k), func(b *testing.B) {
+			path := filepath.Join(b.TempDir(), "sieve.dcert")
+			res := emitFile(b, k, path)
+			b.ResetTimer()
+			for range b.N {
+				if rep := check.File(path, check.Options{}); !rep.Valid {
+					b.Fatal(rep.Err())
+				}
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/trieNodes(res.Header), "ns/node")
+		})
+	}
+}
