@@ -21,6 +21,11 @@ type Options struct {
 	Workers int            // chunks verified in parallel; 0 means GOMAXPROCS
 	Root    *[hashLen]byte // if set, the root the certificate must have
 	Plain   bool           // walk every class, without the memo: slower, same verdict
+
+	// Range certificates.
+	Sieve  string // the sieve certificate the range rests on
+	Sample int    // if > 0, re-derive only this many blocks, chosen from the root and Seed
+	Seed   string
 }
 
 // File checks the certificate stored at path.
@@ -43,6 +48,9 @@ func Check(r io.Reader, o Options) *Report {
 	if f.hdr != nil {
 		rep.describe(f)
 	}
+	if f.rng != nil {
+		rep.describeRange(f)
+	}
 	if fl != nil {
 		return rep.fail(fl)
 	}
@@ -62,6 +70,9 @@ func Check(r io.Reader, o Options) *Report {
 			"the certificate's root %s is not the expected %s", rep.Root, hexHash(*o.Root)))
 	}
 
+	if f.rng != nil {
+		return checkRange(f, rep, o)
+	}
 	sv := newSieve(f.hdr)
 	sv.useMemo = !o.Plain
 	tally, fl := sv.checkChunks(f, o.Workers)
@@ -96,6 +107,17 @@ func (r *Report) describe(f *file) {
 		}
 		r.Exceptions = append(r.Exceptions, er)
 	}
+}
+
+func (r *Report) describeRange(f *file) {
+	h := f.rng
+	r.Kind, r.Map, r.K, r.Cap, r.Chunks = "range", mapName(h.a, h.b), h.k, h.cap, f.records
+	r.SieveRoot, r.From, r.To, r.BlockExp = hexHash(h.sieveRoot), Num(h.lo.String()), Num(h.hi.String()), h.e
+	t := &h.tot
+	r.Counts = &RangeCounts{Sieve: Num(t.counts[0].String()), Search: Num(t.counts[1].String()), Small: Num(t.counts[2].String()),
+		Cycle: Num(t.counts[3].String()), Undecided: Num(t.counts[4].String()), StoppingTimeSum: Num(t.sum.String())}
+	r.Records, r.MaxStoppingTime, r.Cycles = describeSummary(t)
+	r.Undecided = []Num{}
 }
 
 // tally is what the verified claims add up to.

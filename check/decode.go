@@ -16,6 +16,7 @@ const (
 	magic       = "descent\x00"
 	version     = 1
 	kindSieve   = 's'
+	kindRange   = 'r'
 	preambleLen = 18
 	hashLen     = 32
 
@@ -54,7 +55,8 @@ type file struct {
 	off     int64
 	header  []byte // preamble and body: leaf 0
 	records int
-	hdr     *sieveHeader
+	hdr     *sieveHeader // a sieve certificate, or
+	rng     *rangeHeader // a range certificate
 	tree    [][][hashLen]byte
 	offsets []int64
 	next    int
@@ -87,7 +89,7 @@ func openFile(r io.Reader) (*file, *Failure) {
 	if pre[8] != version {
 		return f, malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
 	}
-	if pre[9] != kindSieve {
+	if pre[9] != kindSieve && pre[9] != kindRange {
 		return f, malformed(9, "unknown certificate kind %q", pre[9])
 	}
 	records := binary.BigEndian.Uint32(pre[10:])
@@ -104,11 +106,17 @@ func openFile(r io.Reader) (*file, *Failure) {
 	}
 	f.header = append(pre, body...)
 	f.records = int(records)
-	if f.hdr, fl = parseSieveHeader(body); fl != nil {
-		return f, fl
-	}
-	if fl := f.hdr.sane(f.records); fl != nil {
-		return f, fl
+	if pre[9] == kindRange {
+		if f.rng, fl = parseRangeHeader(body, f.records); fl != nil {
+			return f, fl
+		}
+	} else {
+		if f.hdr, fl = parseSieveHeader(body); fl != nil {
+			return f, fl
+		}
+		if fl := f.hdr.sane(f.records); fl != nil {
+			return f, fl
+		}
 	}
 
 	for level, size := range levelSizes(f.records + 1) {

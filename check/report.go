@@ -48,6 +48,8 @@ var Reasons = map[string]string{
 	"survivor-dropped": "a survivor is claimed to close",
 	"count":            "a count in the header differs from the count the claims give",
 	"exception":        "an exception is missing, invented, or has the wrong fate",
+	"sieve":            "the sieve certificate a range rests on is missing, invalid, or another one",
+	"block":            "a block of a range does not match its re-derivation",
 }
 
 // Where locates a failure. Zero fields are unknown or do not apply.
@@ -104,21 +106,34 @@ type ExceptionReport struct {
 // from the header and are filled in as far as the header could be read;
 // they are proven only when Valid is true.
 type Report struct {
-	File       string            `json:"file,omitempty"`
-	Valid      bool              `json:"valid"`
-	Kind       string            `json:"kind,omitempty"`
-	Root       string            `json:"root,omitempty"`
-	Map        string            `json:"map,omitempty"`
-	K          int               `json:"k,omitempty"`
-	J          int               `json:"j,omitempty"`
-	Cap        uint32            `json:"cap,omitempty"`
-	Chunks     int               `json:"chunks,omitempty"`
-	Survivors  Num               `json:"survivors,omitempty"`
-	ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
-	Exceptions []ExceptionReport `json:"exceptions"`
-	Reason     string            `json:"reason,omitempty"`
-	Error      string            `json:"error,omitempty"`
-	Where      *Where            `json:"where,omitempty"`
+	// JSON keys are chosen per kind by MarshalJSON.
+	File       string
+	Valid      bool
+	Kind       string
+	Root       string
+	Map        string
+	K          int
+	J          int
+	Cap        uint32
+	Chunks     int
+	Survivors  Num
+	ClosedAt   map[string]Num
+	Exceptions []ExceptionReport
+	// Range certificates.
+	SieveRoot       string
+	From            Num
+	To              Num
+	BlockExp        int
+	Counts          *RangeCounts
+	Records         []RecordReport
+	MaxStoppingTime *RecordReport
+	Cycles          []CycleReport
+	Undecided       []Num
+	Audit           *Audit
+
+	Reason string
+	Error  string
+	Where  *Where
 
 	failure *Failure
 }
@@ -145,4 +160,99 @@ func malformed(off int64, format string, args ...any) *Failure {
 
 func invalid(reason string, w Where, format string, args ...any) *Failure {
 	return &Failure{Class: ErrInvalid, Reason: reason, Msg: fmt.Sprintf(format, args...), Where: w}
+}
+
+// RangeCounts says how the numbers of a range are justified.
+type RangeCounts struct {
+	Sieve           Num `json:"sieve"`     // in a closing class: T^t(n) < n, t the stopping time
+	Search          Num `json:"search"`    // in a survivor class, found to drop by iteration
+	Small           Num `json:"small"`     // at most the small bound, found to drop by direct iteration
+	Cycle           Num `json:"cycle"`     // reach a cycle without dropping
+	Undecided       Num `json:"undecided"` // neither within the cap
+	StoppingTimeSum Num `json:"stopping_time_sum"`
+}
+
+// RecordReport is a number with its stopping time.
+type RecordReport struct {
+	N            Num    `json:"n"`
+	StoppingTime uint32 `json:"stopping_time"`
+}
+
+// CycleReport is a cycle, by its smallest member, and how many numbers of
+// the range reach it without dropping below themselves.
+type CycleReport struct {
+	Min   Num `json:"min"`
+	Count Num `json:"count"`
+}
+
+// Audit describes a sampled check of a range.
+type Audit struct {
+	Blocks      int          `json:"blocks"`
+	Audited     int          `json:"audited"`
+	PassIfWrong []PassChance `json:"pass_if_wrong"`
+}
+
+// PassChance is the chance that the audit passes if Share of the blocks
+// (WrongBlocks of them) were wrong.
+type PassChance struct {
+	Share       float64 `json:"share"`
+	WrongBlocks int     `json:"wrong_blocks"`
+	Pass        float64 `json:"pass"`
+}
+
+// MarshalJSON writes the keys of the report's kind: a sieve report always
+// has exceptions, a range report always has records, cycles and undecided.
+func (r *Report) MarshalJSON() ([]byte, error) {
+	type common struct {
+		File  string `json:"file,omitempty"`
+		Valid bool   `json:"valid"`
+		Kind  string `json:"kind,omitempty"`
+		Root  string `json:"root,omitempty"`
+		Map   string `json:"map,omitempty"`
+	}
+	type failure struct {
+		Reason string `json:"reason,omitempty"`
+		Error  string `json:"error,omitempty"`
+		Where  *Where `json:"where,omitempty"`
+	}
+	c := common{r.File, r.Valid, r.Kind, r.Root, r.Map}
+	f := failure{r.Reason, r.Error, r.Where}
+	if r.Kind == "range" {
+		return json.Marshal(struct {
+			common
+			SieveRoot       string         `json:"sieve_root"`
+			From            Num            `json:"from"`
+			To              Num            `json:"to"`
+			K               int            `json:"k"`
+			BlockExp        int            `json:"block_exponent"`
+			Cap             uint32         `json:"cap"`
+			Blocks          int            `json:"blocks"`
+			Counts          *RangeCounts   `json:"counts"`
+			Records         []RecordReport `json:"records"`
+			MaxStoppingTime *RecordReport  `json:"max_stopping_time"`
+			Cycles          []CycleReport  `json:"cycles"`
+			Undecided       []Num          `json:"undecided"`
+			Audit           *Audit         `json:"audit,omitempty"`
+			failure
+		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, orEmpty(r.Records), r.MaxStoppingTime,
+			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, f})
+	}
+	return json.Marshal(struct {
+		common
+		K          int               `json:"k,omitempty"`
+		J          int               `json:"j,omitempty"`
+		Cap        uint32            `json:"cap,omitempty"`
+		Chunks     int               `json:"chunks,omitempty"`
+		Survivors  Num               `json:"survivors,omitempty"`
+		ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
+		Exceptions []ExceptionReport `json:"exceptions"`
+		failure
+	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), f})
+}
+
+func orEmpty[T any](s []T) []T {
+	if s == nil {
+		return []T{}
+	}
+	return s
 }

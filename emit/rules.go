@@ -18,14 +18,18 @@ import (
 // that modular value: closing tests use exact bit lengths of a^s, and
 // thresholds and exceptions use math/big.
 type rules struct {
-	m     cert.Map
-	a, b  uint64 // b in two's complement: a*v + b is exact mod 2^64
-	k, j  int
-	pow   []uint64 // a^s mod 2^64, s = 0..j
-	bitl  []int    // bit length of a^s: the class closes at t iff bitl[s] <= t
-	bigA  *big.Int
-	bigB  *big.Int
-	limit int // cap on the exception search, in numbers tested
+	m    cert.Map
+	a, b uint64 // b in two's complement: a*v + b is exact mod 2^64
+	k, j int
+	pow  []uint64 // a^s mod 2^64, s = 0..j
+	bitl []int    // bit length of a^s: the class closes at t iff bitl[s] <= t
+	// a^s exactly, where it fits 128 bits (powFits[s]).
+	powU    []u128
+	powFits []bool
+	limHi   uint64 // while x>>64 < limHi, a step of the search fits 128 bits
+	bigA    *big.Int
+	bigB    *big.Int
+	limit   int // cap on the exception search, in numbers tested
 }
 
 // maxExceptionSearch caps the numbers the exception search tests: one walk
@@ -43,10 +47,15 @@ func newRules(m cert.Map, k, j int) (*rules, error) {
 	}
 	r := &rules{m: m, a: uint64(m.A), b: uint64(int64(m.B)), k: k, j: j,
 		bigA: big.NewInt(int64(m.A)), bigB: big.NewInt(int64(m.B)), limit: maxExceptionSearch}
+	// x/2 + x*(a-1)/2 + (b+1)/2 < 2^128 when x>>64 < (2^64-1)/a - 1:
+	// then x < 2^128/a - 2^64 and |b| < 2^32 leaves room.
+	r.limHi = ^uint64(0)/r.a - 1
 	p := big.NewInt(1)
 	for s := 0; s <= j+1; s++ {
 		r.pow = append(r.pow, p.Uint64()) // the low 64 bits: a^s mod 2^64
 		r.bitl = append(r.bitl, p.BitLen())
+		u, ok := toU128(p)
+		r.powU, r.powFits = append(r.powU, u), append(r.powFits, ok)
 		p.Mul(p, r.bigA)
 	}
 	return r, nil

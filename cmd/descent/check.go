@@ -9,10 +9,13 @@ import (
 )
 
 func (c *cli) check(args []string) int {
-	fs := c.flags("check", "check [-json] [-root HEX] FILE...")
+	fs := c.flags("check", "check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] FILE...")
 	asJSON := fs.Bool("json", false, "write one JSON report per certificate, one per line")
 	rootHex := fs.String("root", "", "the published root `HEX` the certificate must have")
-	workers := fs.Int("workers", 0, "chunks verified in parallel (default: all cores)")
+	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
+	sieve := fs.String("sieve", "", "for a range certificate: the sieve certificate `FILE` it rests on")
+	sampleN := fs.Int("sample", 0, "for a range certificate: re-derive only `N` blocks, chosen from the root and -seed")
+	seed := fs.String("seed", "", "the reader's own `seed` for choosing the sampled blocks")
 	if code, stop := parse(fs, args); stop {
 		return code
 	}
@@ -21,7 +24,11 @@ func (c *cli) check(args []string) int {
 		fs.Usage()
 		return exitUsage
 	}
-	o := check.Options{Workers: *workers}
+	if *sampleN < 0 {
+		c.errorf("check: -sample %d: want a positive number of blocks", *sampleN)
+		return exitUsage
+	}
+	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
 	if *rootHex != "" {
 		root, err := check.ParseRoot(*rootHex)
 		if err != nil {
@@ -59,6 +66,21 @@ func exitStatus(rep *check.Report) int {
 }
 
 func (c *cli) printReport(rep *check.Report) {
+	if rep.Valid && rep.Kind == "range" {
+		verdict := "valid range certificate"
+		if a := rep.Audit; a != nil {
+			verdict = fmt.Sprintf("passes an audit of %d of its %d blocks (not a full check)", a.Audited, a.Blocks)
+		}
+		fmt.Fprintf(c.stdout, "%s: %s\n  root       %s\n  sieve      %s\n  claim      %s\n",
+			rep.File, verdict, rep.Root, rep.SieveRoot, rangeFactsFromReport(rep).summary())
+		if a := rep.Audit; a != nil {
+			for _, p := range a.PassIfWrong {
+				fmt.Fprintf(c.stdout, "  audit      if %g%% of the blocks (%d) were wrong, this audit would pass with probability %.3g\n",
+					100*p.Share, p.WrongBlocks, p.Pass)
+			}
+		}
+		return
+	}
 	if rep.Valid {
 		fmt.Fprintf(c.stdout, "%s: valid %s certificate\n  root       %s\n  claim      %s\n",
 			rep.File, rep.Kind, rep.Root, factsFromReport(rep).summary())

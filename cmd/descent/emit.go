@@ -10,8 +10,11 @@ import (
 )
 
 func (c *cli) emit(ctx context.Context, args []string) int {
+	if len(args) > 0 && args[0] == "range" {
+		return c.emitRange(ctx, args[1:])
+	}
 	if len(args) == 0 || args[0] != "sieve" {
-		c.errorf("emit: want a certificate kind: descent emit sieve ...")
+		c.errorf("emit: want a certificate kind: descent emit sieve ... or descent emit range ...")
 		return exitUsage
 	}
 	fs := c.flags("emit sieve", "emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] -o FILE")
@@ -55,8 +58,12 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 	update, finish := c.progress("chunks")
+	var progress func(done, total int)
+	if update != nil {
+		progress = func(done, total int) { update(done, total, "") }
+	}
 	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag)},
-		emit.Options{Workers: *workers, Progress: update})
+		emit.Options{Workers: *workers, Progress: progress})
 	finish()
 	if err == nil {
 		err = f.commit()

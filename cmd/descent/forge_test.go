@@ -8,6 +8,7 @@ import (
 	"math/big"
 	"os"
 	"path/filepath"
+	"strconv"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -286,4 +287,135 @@ func TestForgeriesAreCaughtWithTheRightReason(t *testing.T) {
 			require.NotEmpty(t, rep["where"])
 		})
 	}
+}
+
+// rangeCut is a range certificate taken apart.
+type rangeCut struct {
+	h      *cert.RangeHeader
+	blocks []*cert.Block
+}
+
+func openRange(t *testing.T, b []byte) *rangeCut {
+	t.Helper()
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	require.NoError(t, err)
+	h, err := cert.ParseRangeHeader(rd.Header)
+	require.NoError(t, err)
+	c := &rangeCut{h: h}
+	for {
+		rec, err := rd.Next()
+		if err == io.EOF {
+			return c
+		}
+		require.NoError(t, err)
+		blk, err := cert.ParseBlock(rec, 0)
+		require.NoError(t, err)
+		c.blocks = append(c.blocks, blk)
+	}
+}
+
+func (c *rangeCut) seal(t *testing.T) []byte {
+	t.Helper()
+	hb, err := c.h.Marshal()
+	require.NoError(t, err)
+	var f memFile
+	w, err := cert.NewWriter(&f, hb)
+	require.NoError(t, err)
+	for _, b := range c.blocks {
+		rec, err := b.Marshal()
+		require.NoError(t, err)
+		require.NoError(t, w.WriteRecord(rec, cert.LeafHash(rec)))
+	}
+	_, _, err = w.Close()
+	require.NoError(t, err)
+	return f.b
+}
+
+func checkRangeJSON(t *testing.T, b []byte, sieve string, extra ...string) (int, map[string]any) {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "forged.dcert")
+	require.NoError(t, os.WriteFile(path, b, 0o644))
+	code, stdout, _ := runCLI(append(append([]string{"check", "-json", "-sieve", sieve}, extra...), path)...)
+	var rep map[string]any
+	require.NoError(t, json.Unmarshal([]byte(stdout), &rep), stdout)
+	return code, rep
+}
+
+func TestRangeForgeries(t *testing.T) {
+	dir := t.TempDir()
+	sieve := filepath.Join(dir, "sieve.dcert")
+	other := filepath.Join(dir, "other.dcert")
+	good := filepath.Join(dir, "range.dcert")
+	for _, args := range [][]string{
+		{"emit", "sieve", "-k", "12", "-o", sieve},
+		{"emit", "sieve", "-k", "11", "-o", other},
+		{"emit", "range", "-sieve", sieve, "-from", "2^30", "-to", "2^30+2^18", "-block", "14", "-o", good},
+	} {
+		code, _, stderr := runCLI(args...)
+		require.Equal(t, exitOK, code, stderr)
+	}
+	b, err := os.ReadFile(good)
+	require.NoError(t, err)
+	code, rep := checkRangeJSON(t, b, sieve)
+	require.Equal(t, exitOK, code, "%v", rep)
+
+	t.Run("a block summary changed, totals and hashes recomputed", func(t *testing.T) {
+		c := openRange(t, b)
+		const forged = 9
+		blk := c.blocks[forged]
+		blk.Sieve.Add(blk.Sieve, big.NewInt(1)) // one more by the sieve,
+		blk.Search.Sub(blk.Search, big.NewInt(1))
+		c.h.Totals.Sieve.Add(c.h.Totals.Sieve, big.NewInt(1)) // and the totals to match
+		c.h.Totals.Search.Sub(c.h.Totals.Search, big.NewInt(1))
+		forgedFile := c.seal(t)
+		code, rep := checkRangeJSON(t, forgedFile, sieve)
+		require.Equal(t, exitInvalid, code)
+		require.Equal(t, "block", rep["reason"])
+		require.EqualValues(t, forged, rep["where"].(map[string]any)["chunk"])
+
+		// An audit catches it exactly when it draws that block.
+		caught, passed := 0, 0
+		for seed := range 40 {
+			code, rep := checkRangeJSON(t, forgedFile, sieve, "-sample", "2", "-seed", strconv.Itoa(seed))
+			switch code {
+			case exitInvalid:
+				require.Equal(t, "block", rep["reason"])
+				require.EqualValues(t, forged, rep["where"].(map[string]any)["chunk"])
+				caught++
+			case exitOK:
+				require.EqualValues(t, 2, rep["audit"].(map[string]any)["audited"])
+				passed++
+			default:
+				t.Fatalf("exit %d: %v", code, rep)
+			}
+		}
+		require.Positive(t, caught, "no audit of 2 of 16 blocks drew the forged one in 40 seeds")
+		require.Positive(t, passed)
+	})
+	t.Run("the range edited", func(t *testing.T) {
+		c := openRange(t, b)
+		c.h.Hi.Sub(c.h.Hi, big.NewInt(1))
+		code, rep := checkRangeJSON(t, c.seal(t), sieve)
+		require.Equal(t, exitInvalid, code)
+		require.Equal(t, "block", rep["reason"])
+	})
+	t.Run("the sieve root edited", func(t *testing.T) {
+		c := openRange(t, b)
+		c.h.SieveRoot[0] ^= 1
+		code, rep := checkRangeJSON(t, c.seal(t), sieve)
+		require.Equal(t, exitInvalid, code)
+		require.Equal(t, "sieve", rep["reason"])
+	})
+	t.Run("checked against another sieve", func(t *testing.T) {
+		code, rep := checkRangeJSON(t, b, other)
+		require.Equal(t, exitInvalid, code)
+		require.Equal(t, "sieve", rep["reason"])
+	})
+	t.Run("the header totals alone edited", func(t *testing.T) {
+		c := openRange(t, b)
+		c.h.Totals.SigmaSum.Add(c.h.Totals.SigmaSum, big.NewInt(1))
+		code, rep := checkRangeJSON(t, c.seal(t), sieve, "-sample", "1")
+		require.Equal(t, exitInvalid, code, "totals are checked against every block even in an audit")
+		require.Equal(t, "count", rep["reason"])
+	})
 }

@@ -59,12 +59,13 @@ func isTerminal(f *os.File) bool { return term.IsTerminal(int(f.Fd())) }
 
 // progress returns a callback that draws a bar on stderr when it is a
 // terminal, and nil otherwise, so logs and pipes get no cursor codes.
-func (c *cli) progress(what string) (func(done, total int), func()) {
+// The callback takes the work done, the total and a description.
+func (c *cli) progress(what string) (func(done, total int, desc string), func()) {
 	if !c.stderrTTY {
 		return nil, func() {}
 	}
 	var bar *progressbar.ProgressBar
-	update := func(done, total int) {
+	update := func(done, total int, desc string) {
 		if bar == nil {
 			bar = progressbar.NewOptions(total,
 				progressbar.OptionSetWriter(c.stderr),
@@ -73,6 +74,9 @@ func (c *cli) progress(what string) (func(done, total int), func()) {
 				progressbar.OptionSetPredictTime(true),
 				progressbar.OptionClearOnFinish(),
 				progressbar.OptionThrottle(100e6))
+		}
+		if desc != "" {
+			bar.Describe(desc)
 		}
 		bar.Set(done)
 	}

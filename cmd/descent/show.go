@@ -4,6 +4,8 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
+	"math/big"
 	"os"
 	"strings"
 	"text/tabwriter"
@@ -43,6 +45,9 @@ func (c *cli) show(args []string) int {
 		return exitUsage
 	}
 	path := fs.Arg(0)
+	if kind, err := peekKind(path); err == nil && kind == cert.KindRange {
+		return c.showRange(path, *asJSON)
+	}
 	h, root, err := readHeader(path)
 	if err != nil {
 		c.errorf("show: %s: %v", path, err)
@@ -142,4 +147,167 @@ func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f fact
 		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap))
 	}
 	fmt.Fprintf(w, "\nThis is the claim as written in the file; 'descent check %s' re-derives it.\n", path)
+}
+
+// peekKind reads the kind byte of a certificate.
+func peekKind(path string) (byte, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return 0, err
+	}
+	defer f.Close()
+	var pre [cert.PreambleSize]byte
+	if _, err := io.ReadFull(f, pre[:]); err != nil {
+		return 0, err
+	}
+	return pre[9], nil
+}
+
+// readRange reads a range certificate's header, checks its stored tree,
+// and collects the undecided numbers from its blocks.
+func readRange(path string) (*cert.RangeHeader, cert.Hash, []*big.Int, error) {
+	file, err := os.Open(path)
+	if err != nil {
+		return nil, cert.Hash{}, nil, err
+	}
+	defer file.Close()
+	rd, err := cert.NewReader(file)
+	if err != nil {
+		return nil, cert.Hash{}, nil, err
+	}
+	h, err := cert.ParseRangeHeader(rd.Header)
+	if err != nil {
+		return nil, cert.Hash{}, nil, err
+	}
+	if err := rd.CheckTree(); err != nil {
+		return nil, cert.Hash{}, nil, err
+	}
+	var undecided []*big.Int
+	for i := 0; ; i++ {
+		rec, err := rd.Next()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return nil, cert.Hash{}, nil, err
+		}
+		if cert.LeafHash(rec) != rd.Levels[0][i+1] {
+			return nil, cert.Hash{}, nil, fmt.Errorf("block %d does not match its hash: %w", i, cert.ErrHashMismatch)
+		}
+		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		if err != nil {
+			return nil, cert.Hash{}, nil, err
+		}
+		undecided = append(undecided, b.UndecidedNs...)
+	}
+	return h, rd.Root(), undecided, nil
+}
+
+type showRangeReport struct {
+	File            string               `json:"file"`
+	Kind            string               `json:"kind"`
+	Root            string               `json:"root"`
+	Verified        bool                 `json:"verified"`
+	SieveRoot       string               `json:"sieve_root"`
+	Map             string               `json:"map"`
+	From            check.Num            `json:"from"`
+	To              check.Num            `json:"to"`
+	K               int                  `json:"k"`
+	BlockExp        int                  `json:"block_exponent"`
+	Cap             uint32               `json:"cap"`
+	Blocks          int                  `json:"blocks"`
+	Counts          check.RangeCounts    `json:"counts"`
+	Records         []check.RecordReport `json:"records"`
+	MaxStoppingTime *check.RecordReport  `json:"max_stopping_time"`
+	Cycles          []check.CycleReport  `json:"cycles"`
+	Undecided       []check.Num          `json:"undecided"`
+	Claim           string               `json:"claim"`
+	NotProven       string               `json:"not_proven"`
+}
+
+func (c *cli) showRange(path string, asJSON bool) int {
+	h, root, undecided, err := readRange(path)
+	if err != nil {
+		c.errorf("show: %s: %v", path, err)
+		if errors.Is(err, cert.ErrHashMismatch) {
+			fmt.Fprintf(c.stderr, "hint: the file is damaged or was altered; 'descent check -sieve SIEVE %s' says where\n", path)
+			return exitInvalid
+		}
+		return exitUsage
+	}
+	f := rangeFactsFromHeader(h)
+	und := []check.Num{}
+	for _, n := range undecided {
+		und = append(und, num(n))
+	}
+	if asJSON {
+		rep := showRangeReport{File: path, Kind: "range", Root: root.String(), SieveRoot: f.SieveRoot, Map: f.Map,
+			From: check.Num(f.Lo), To: check.Num(f.Hi), K: f.K, BlockExp: f.E, Cap: f.Cap, Blocks: h.Blocks, Counts: f.Counts,
+			Records: orEmpty(f.Records), MaxStoppingTime: f.Max, Cycles: orEmpty(f.Cycles), Undecided: und,
+			Claim: f.sentence(), NotProven: f.caveat()}
+		b, _ := json.MarshalIndent(rep, "", "  ")
+		fmt.Fprintf(c.stdout, "%s\n", b)
+		return exitOK
+	}
+	w := c.stdout
+	fmt.Fprintf(w, "%s: descent range certificate\n\n", path)
+	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
+	fmt.Fprintf(tw, "  root\t%v\n", root)
+	fmt.Fprintf(tw, "  map\tT(n) = n/2 for even n, (%s)/2 for odd n\n", f.Map)
+	fmt.Fprintf(tw, "  range\t[%s, %s)\n", f.Lo, f.Hi)
+	fmt.Fprintf(tw, "  sieve\t%s (k = %d)\n", f.SieveRoot, f.K)
+	fmt.Fprintf(tw, "  blocks\t%d of 2^%d numbers\n", h.Blocks, f.E)
+	fmt.Fprintf(tw, "  step cap\t%d\n", f.Cap)
+	tw.Flush()
+	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
+	fmt.Fprintf(w, "\nWhat it does not prove\n%s\n", wrap(f.caveat(), 76, "  "))
+	fmt.Fprintf(w, "\nHow the numbers are justified\n")
+	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
+	for _, row := range [][2]string{
+		{"in a closing class of the sieve (stopping time = its closing step)", string(f.Counts.Sieve)},
+		{"in a survivor class, searched until they drop", string(f.Counts.Search)},
+		{"small numbers, iterated directly", string(f.Counts.Small)},
+		{"reach a cycle without dropping", string(f.Counts.Cycle)},
+		{"undecided within the cap", string(f.Counts.Undecided)},
+	} {
+		fmt.Fprintf(tw, "  %s\t  %s\n", row[1], row[0])
+	}
+	tw.Flush()
+	if f.Max != nil {
+		fmt.Fprintf(w, "\nLargest stopping time: %d steps, first at n = %s\n", f.Max.StoppingTime, f.Max.N)
+	}
+	fmt.Fprintf(w, "\nStopping-time records (n whose stopping time exceeds that of every smaller n in the range)\n")
+	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintf(tw, "  n\tstopping time\t\n")
+	for _, r := range f.Records {
+		fmt.Fprintf(tw, "  %s\t%d\t\n", r.N, r.StoppingTime)
+	}
+	tw.Flush()
+	fmt.Fprintf(w, "\nCycles reached without dropping\n")
+	if len(f.Cycles) == 0 {
+		fmt.Fprintf(w, "  none\n")
+	}
+	for _, cy := range f.Cycles {
+		fmt.Fprintf(w, "  the cycle whose smallest member is %s: %s numbers\n", cy.Min, cy.Count)
+	}
+	fmt.Fprintf(w, "\nUndecided numbers\n")
+	if len(und) == 0 {
+		fmt.Fprintf(w, "  none\n")
+	}
+	for i, n := range und {
+		if i == 50 {
+			fmt.Fprintf(w, "  ... and %d more ('descent show -json' lists them all)\n", len(und)-50)
+			break
+		}
+		fmt.Fprintf(w, "  %s\n", n)
+	}
+	fmt.Fprintf(w, "\nThis is the claim as written in the file; 'descent check -sieve SIEVE %s' re-derives it.\n", path)
+	return exitOK
+}
+
+func orEmpty[T any](s []T) []T {
+	if s == nil {
+		return []T{}
+	}
+	return s
 }

@@ -1,0 +1,237 @@
+package check
+
+import (
+	"fmt"
+	"math/big"
+	"math/rand/v2"
+	"sort"
+
+	"golang.org/x/crypto/blake2b"
+)
+
+// checkRange checks a range certificate whose header and tree are read
+// and verified; f is positioned at its first record.
+func checkRange(f *file, rep *Report, o Options) *Report {
+	h := f.rng
+	if o.Sieve == "" {
+		return rep.fail(&Failure{Class: ErrMalformed, Reason: "sieve",
+			Msg: fmt.Sprintf("this range certificate rests on the sieve certificate with root %s; give it with -sieve FILE", hexHash(h.sieveRoot))})
+	}
+	srep := File(o.Sieve, Options{Workers: o.Workers})
+	if !srep.Valid {
+		return rep.fail(invalid("sieve", Where{}, "the sieve certificate %s it rests on is not valid: %v", o.Sieve, srep.Err()))
+	}
+	if srep.Kind != "sieve" || srep.Root != hexHash(h.sieveRoot) {
+		return rep.fail(invalid("sieve", Where{Claim: "sieve root", Expected: hexHash(h.sieveRoot), Found: srep.Root},
+			"the certificate rests on the sieve %s, but %s is %s", hexHash(h.sieveRoot), o.Sieve, srep.Root))
+	}
+	if srep.Map != rep.Map || srep.K != h.k || srep.J != h.k {
+		return rep.fail(invalid("sieve", Where{Claim: "sieve"}, "the sieve is for %s with k = %d, j = %d; the range needs %s with k = j = %d",
+			srep.Map, srep.K, srep.J, rep.Map, h.k))
+	}
+
+	var blocks []*blockRec
+	for i := 0; ; i++ {
+		rec, fl := f.record()
+		if fl != nil {
+			return rep.fail(fl)
+		}
+		if rec == nil {
+			break
+		}
+		if got := leafHash(rec); got != f.tree[0][i+1] {
+			c := i
+			return rep.fail(invalid("hash", Where{Chunk: &c, Offset: &f.offsets[i]}, "block %d hashes to %s; the stored tree says %s", i, short(got), short(f.tree[0][i+1])))
+		}
+		b, fl := parseBlock(rec, f.offsets[i])
+		if fl != nil {
+			return rep.fail(fl)
+		}
+		if b.index != uint32(i) {
+			return rep.fail(malformed(f.offsets[i], "record %d says it is block %d", i, b.index))
+		}
+		blocks = append(blocks, b)
+	}
+	if fl := checkTotals(h, blocks); fl != nil {
+		return rep.fail(fl)
+	}
+	for _, b := range blocks {
+		for _, n := range b.undecided {
+			rep.Undecided = append(rep.Undecided, Num(n.String()))
+		}
+	}
+
+	s := newSearcher(h)
+	chosen := make([]int, len(blocks))
+	for i := range chosen {
+		chosen[i] = i
+	}
+	if o.Sample > 0 && o.Sample < len(blocks) {
+		chosen = sample(f.tree[len(f.tree)-1][0], o.Seed, len(blocks), o.Sample)
+		rep.Audit = audit(len(blocks), len(chosen))
+	}
+	for _, i := range chosen {
+		want, _ := s.derive(i, defaultWorkers(o.Workers))
+		if fl := compareBlock(i, want, blocks[i]); fl != nil {
+			return rep.fail(fl)
+		}
+	}
+	rep.Valid = true
+	return rep
+}
+
+// sample picks n distinct blocks of m with a generator seeded from the
+// root and the reader's seed, so the writer cannot know which will be
+// audited.
+func sample(root [hashLen]byte, seed string, m, n int) []int {
+	d, _ := blake2b.New256(nil)
+	d.Write([]byte("descent audit\x00"))
+	d.Write(root[:])
+	d.Write([]byte(seed))
+	var key [32]byte
+	d.Sum(key[:0])
+	rng := rand.New(rand.NewChaCha8(key))
+	seen := map[int]bool{}
+	var out []int
+	for len(out) < n {
+		if i := rng.IntN(m); !seen[i] {
+			seen[i] = true
+			out = append(out, i)
+		}
+	}
+	return out
+}
+
+// audit states what a sample of n of m blocks shows: the chance that it
+// passes although a given share of the blocks is wrong, drawing without
+// replacement.
+func audit(m, n int) *Audit {
+	a := &Audit{Blocks: m, Audited: n}
+	for _, share := range []float64{0.001, 0.01, 0.1} {
+		wrong := int(share*float64(m) + 0.999999)
+		p := 1.0
+		for i := 0; i < n; i++ {
+			if m-wrong-i <= 0 {
+				p = 0
+				break
+			}
+			p *= float64(m-wrong-i) / float64(m-i)
+		}
+		a.PassIfWrong = append(a.PassIfWrong, PassChance{Share: share, WrongBlocks: wrong, Pass: p})
+	}
+	return a
+}
+
+func describeSummary(s *summary) (records []RecordReport, max *RecordReport, cycles []CycleReport) {
+	records = []RecordReport{}
+	for _, p := range s.records {
+		records = append(records, RecordReport{N: Num(p.n.String()), StoppingTime: p.sigma})
+	}
+	if s.maxAt != nil {
+		max = &RecordReport{N: Num(s.maxAt.String()), StoppingTime: s.maxSigma}
+	}
+	cycles = []CycleReport{}
+	for _, c := range s.cycles {
+		cycles = append(cycles, CycleReport{Min: Num(c.min.String()), Count: Num(c.count.String())})
+	}
+	return records, max, cycles
+}
+
+// checkTotals compares the header's totals with the sum of the blocks.
+func checkTotals(h *rangeHeader, blocks []*blockRec) *Failure {
+	want := summary{sum: new(big.Int)}
+	for i := range want.counts {
+		want.counts[i] = new(big.Int)
+	}
+	cycles := map[string]*cycleCount{}
+	for _, b := range blocks {
+		for i, c := range b.sum.counts {
+			want.counts[i].Add(want.counts[i], c)
+		}
+		want.sum.Add(want.sum, b.sum.sum)
+		if b.sum.maxSigma > want.maxSigma {
+			want.maxSigma, want.maxAt = b.sum.maxSigma, b.sum.maxAt
+		}
+		for _, p := range b.sum.records {
+			if len(want.records) == 0 || p.sigma > want.records[len(want.records)-1].sigma {
+				want.records = append(want.records, p)
+			}
+		}
+		for _, c := range b.sum.cycles {
+			if m := cycles[c.min.String()]; m != nil {
+				m.count.Add(m.count, c.count)
+			} else {
+				cycles[c.min.String()] = &cycleCount{min: c.min, count: new(big.Int).Set(c.count)}
+			}
+		}
+	}
+	for _, c := range cycles {
+		want.cycles = append(want.cycles, *c)
+	}
+	sortCycles(want.cycles)
+	if d := diffSummary(&want, &h.tot); d != "" {
+		return invalid("count", Where{Claim: "header totals"}, "the header's totals differ from the sum of its blocks: %s", d)
+	}
+	return nil
+}
+
+// compareBlock compares a re-derived block with the one in the file.
+func compareBlock(i int, want, got *blockRec) *Failure {
+	c := i
+	d := diffSummary(&want.sum, &got.sum)
+	if d == "" && len(want.undecided) != len(got.undecided) {
+		d = fmt.Sprintf("undecided numbers: expected %d, found %d", len(want.undecided), len(got.undecided))
+	}
+	for j := 0; d == "" && j < len(want.undecided); j++ {
+		if want.undecided[j].Cmp(got.undecided[j]) != 0 {
+			d = fmt.Sprintf("undecided number %d: expected %v, found %v", j, want.undecided[j], got.undecided[j])
+		}
+	}
+	if d == "" {
+		return nil
+	}
+	return invalid("block", Where{Chunk: &c, Claim: "block summary"}, "block %d does not match its re-derivation: %s", i, d)
+}
+
+// diffSummary names the first field in which two summaries differ.
+func diffSummary(want, got *summary) string {
+	for i := range want.counts {
+		if want.counts[i].Cmp(got.counts[i]) != 0 {
+			return fmt.Sprintf("%s: expected %v, found %v", countNames[i], want.counts[i], got.counts[i])
+		}
+	}
+	if want.sum.Cmp(got.sum) != 0 {
+		return fmt.Sprintf("sum of stopping times: expected %v, found %v", want.sum, got.sum)
+	}
+	if want.maxSigma != got.maxSigma || !sameNum(want.maxAt, got.maxAt) {
+		return fmt.Sprintf("largest stopping time: expected %d at %v, found %d at %v", want.maxSigma, want.maxAt, got.maxSigma, got.maxAt)
+	}
+	if len(want.records) != len(got.records) {
+		return fmt.Sprintf("records: expected %d, found %d", len(want.records), len(got.records))
+	}
+	for j, p := range want.records {
+		if p.n.Cmp(got.records[j].n) != 0 || p.sigma != got.records[j].sigma {
+			return fmt.Sprintf("record %d: expected %v (%d steps), found %v (%d steps)", j, p.n, p.sigma, got.records[j].n, got.records[j].sigma)
+		}
+	}
+	if len(want.cycles) != len(got.cycles) {
+		return fmt.Sprintf("cycles: expected %d, found %d", len(want.cycles), len(got.cycles))
+	}
+	for j, c := range want.cycles {
+		if c.min.Cmp(got.cycles[j].min) != 0 || c.count.Cmp(got.cycles[j].count) != 0 {
+			return fmt.Sprintf("cycle %d: expected %v (%v numbers), found %v (%v numbers)", j, c.min, c.count, got.cycles[j].min, got.cycles[j].count)
+		}
+	}
+	return ""
+}
+
+func sameNum(x, y *big.Int) bool {
+	if x == nil || y == nil {
+		return x == nil && y == nil
+	}
+	return x.Cmp(y) == 0
+}
+
+func sortCycles(cs []cycleCount) {
+	sort.Slice(cs, func(i, j int) bool { return cs[i].min.Cmp(cs[j].min) < 0 })
+}

@@ -1,0 +1,194 @@
+package check
+
+import (
+	"math/big"
+)
+
+// Range certificates (cert/SPEC.md, section 6): the header and the block
+// records, read by this package's own decoder.
+
+const (
+	maxList     = 1 << 16 // records, cycles or undecided numbers in one list
+	maxBlockExp = 62
+)
+
+type point struct {
+	n     *big.Int
+	sigma uint32
+}
+
+type cycleCount struct {
+	min, count *big.Int
+}
+
+// summary is what a block, or the whole range, establishes.
+type summary struct {
+	counts   [5]*big.Int // sieve, search, small, cycle, undecided
+	sum      *big.Int    // of stopping times
+	maxSigma uint32
+	maxAt    *big.Int // nil if no number drops
+	records  []point
+	cycles   []cycleCount
+}
+
+var countNames = [5]string{"numbers justified by the sieve", "numbers found to drop by search",
+	"small numbers found to drop by direct iteration", "numbers that reach a cycle", "undecided numbers"}
+
+type rangeHeader struct {
+	a         uint32
+	b         int32
+	sieveRoot [hashLen]byte
+	k, e      int
+	cap       uint32
+	lo, hi    *big.Int
+	first     *big.Int // index of the first block: lo >> e
+	tot       summary
+}
+
+type blockRec struct {
+	index     uint32
+	sum       summary
+	undecided []*big.Int
+}
+
+func (p *fields) u128(what string) *big.Int {
+	if b := p.next(16, what); b != nil {
+		return new(big.Int).SetBytes(b)
+	}
+	return nil
+}
+
+func (p *fields) optNatural(what string) *big.Int {
+	if p.bad == nil && p.pos < len(p.b) && p.b[p.pos] == 0 {
+		p.pos++
+		return nil
+	}
+	return p.natural(what)
+}
+
+// list reads a count and checks it against the cap before anything is
+// allocated for it.
+func (p *fields) list(what string) int {
+	n := p.int32be(what)
+	if p.bad == nil && n > maxList {
+		p.bad = malformed(int64(preambleLen+p.pos-4), "%d %s; the format allows %d", n, what, maxList)
+		return 0
+	}
+	return int(n)
+}
+
+// summaryOf reads a summary; wide counts are 16 bytes (header), else 8.
+func (p *fields) summaryOf(wide bool) summary {
+	var s summary
+	for i := range s.counts {
+		if wide {
+			s.counts[i] = p.u128(countNames[i])
+		} else {
+			s.counts[i] = new(big.Int).SetUint64(p.int64be(countNames[i]))
+		}
+	}
+	s.sum = p.u128("stopping-time sum")
+	s.maxSigma = p.int32be("largest stopping time")
+	s.maxAt = p.optNatural("first number with it")
+	for range p.list("records") {
+		s.records = append(s.records, point{n: p.natural("record"), sigma: p.int32be("record stopping time")})
+	}
+	for range p.list("cycles") {
+		c := cycleCount{min: p.natural("cycle minimum")}
+		if wide {
+			c.count = p.u128("cycle count")
+		} else {
+			c.count = new(big.Int).SetUint64(p.int64be("cycle count"))
+		}
+		s.cycles = append(s.cycles, c)
+	}
+	return s
+}
+
+// sane applies the format's rules on the values of a summary.
+func (s *summary) sane(at int64, where string) *Failure {
+	if p := s.maxAt; (p == nil) != (s.maxSigma == 0) {
+		return malformed(at, "%s: a largest stopping time of %d with first number %v", where, s.maxSigma, p)
+	}
+	for i, r := range s.records {
+		if r.sigma == 0 || (i > 0 && (s.records[i-1].n.Cmp(r.n) >= 0 || s.records[i-1].sigma >= r.sigma)) {
+			return malformed(at, "%s: records must increase in n and in stopping time", where)
+		}
+	}
+	for i, c := range s.cycles {
+		if c.count.Sign() == 0 || (i > 0 && s.cycles[i-1].min.Cmp(c.min) >= 0) {
+			return malformed(at, "%s: cycles must increase in their smallest member and count at least one number", where)
+		}
+	}
+	return nil
+}
+
+func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
+	p := &fields{b: body}
+	h := &rangeHeader{}
+	h.a = p.int32be("multiplier")
+	h.b = int32(p.int32be("constant"))
+	copy(h.sieveRoot[:], p.next(hashLen, "sieve root"))
+	h.k = int(p.byte1("sieve k"))
+	h.e = int(p.byte1("block exponent"))
+	h.cap = p.int32be("step cap")
+	h.lo = p.natural("from")
+	h.hi = p.natural("to")
+	h.tot = p.summaryOf(true)
+	if p.bad != nil {
+		return nil, p.bad
+	}
+	if p.pos != len(body) {
+		return nil, malformed(int64(preambleLen+p.pos), "%d bytes follow the last cycle inside the header", len(body)-p.pos)
+	}
+	const at = preambleLen
+	switch {
+	case h.a < 3 || h.a%2 == 0:
+		return nil, malformed(at, "multiplier %d: the format needs an odd a >= 3", h.a)
+	case h.b%2 == 0 || int64(h.b) <= -int64(h.a):
+		return nil, malformed(at+4, "constant %d: the format needs an odd b > -a", h.b)
+	case h.k < 1 || h.k > maxK || h.e < h.k || h.e > maxBlockExp:
+		return nil, malformed(at+40, "sieve k = %d and block exponent %d: the format needs 1 <= k <= e <= %d", h.k, h.e, maxBlockExp)
+	case h.cap < 1 || h.cap > maxCap:
+		return nil, malformed(at+42, "step cap %d: the format allows 1 to %d", h.cap, maxCap)
+	case h.lo.Cmp(h.hi) >= 0:
+		return nil, malformed(at+46, "the range [%v, %v) is empty", h.lo, h.hi)
+	}
+	h.first = new(big.Int).Rsh(h.lo, uint(h.e))
+	last := new(big.Int).Sub(h.hi, big.NewInt(1))
+	last.Rsh(last, uint(h.e)).Sub(last, h.first)
+	if !last.IsInt64() || last.Int64()+1 != int64(records) {
+		return nil, malformed(10, "the preamble declares %d records; [%v, %v) has %v blocks of 2^%d", records, h.lo, h.hi, last.Add(last, big.NewInt(1)), h.e)
+	}
+	return h, h.tot.sane(at, "header")
+}
+
+func parseBlock(rec []byte, base int64) (*blockRec, *Failure) {
+	p := &fields{b: rec}
+	b := &blockRec{index: p.int32be("block index")}
+	b.sum = p.summaryOf(false)
+	for range p.list("undecided numbers") {
+		b.undecided = append(b.undecided, p.natural("undecided number"))
+	}
+	if p.bad != nil {
+		// fields counts offsets from the header body; rebase them on the record.
+		off := *p.bad.Where.Offset - preambleLen + base
+		p.bad.Where.Offset = &off
+		return nil, p.bad
+	}
+	if p.pos != len(rec) {
+		return nil, malformed(base+int64(p.pos), "%d bytes follow the last undecided number of the block", len(rec)-p.pos)
+	}
+	if fl := b.sum.sane(base, "block"); fl != nil {
+		return nil, fl
+	}
+	if int64(len(b.undecided)) != b.sum.counts[4].Int64() || !b.sum.counts[4].IsInt64() {
+		return nil, malformed(base, "the block counts %v undecided numbers and lists %d", b.sum.counts[4], len(b.undecided))
+	}
+	for i := 1; i < len(b.undecided); i++ {
+		if b.undecided[i-1].Cmp(b.undecided[i]) >= 0 {
+			return nil, malformed(base, "undecided numbers must increase")
+		}
+	}
+	return b, nil
+}

@@ -1,0 +1,442 @@
+package check
+
+import (
+	"math/big"
+	"math/bits"
+	"runtime"
+	"sort"
+	"sync"
+)
+
+// The checker's own derivation of a block of a range certificate
+// (SPEC.md, section 6): which numbers the sieve justifies, and the search of
+// every other number, by arithmetic written here, not taken from the
+// emitter.
+
+// wide is an exact non-negative integer: in hi:lo while big is nil.
+type wide struct {
+	hi, lo uint64
+	big    *big.Int
+}
+
+func (x wide) toBig() *big.Int {
+	if x.big != nil {
+		return x.big
+	}
+	z := new(big.Int).SetUint64(x.hi)
+	return z.Lsh(z, 64).Add(z, new(big.Int).SetUint64(x.lo))
+}
+
+func fromBig(z *big.Int) wide {
+	if z.BitLen() > 128 {
+		return wide{big: z}
+	}
+	words := make([]byte, 16)
+	z.FillBytes(words)
+	var x wide
+	for i := 0; i < 8; i++ {
+		x.hi = x.hi<<8 | uint64(words[i])
+		x.lo = x.lo<<8 | uint64(words[8+i])
+	}
+	return x
+}
+
+func (x wide) parity() uint64 {
+	if x.big != nil {
+		return uint64(x.big.Bit(0))
+	}
+	return x.lo & 1
+}
+
+// searcher holds the arithmetic of one range certificate.
+type searcher struct {
+	h     *rangeHeader
+	sv    *sieve // for the closing test and the small bound
+	k, d  int
+	pow   []*big.Int // a^s exactly
+	small *big.Int   // numbers up to it are iterated directly
+	stubs []uint64
+	limHi uint64 // below it (high word of x) a step stays within 128 bits
+	half  uint64 // (a-1)/2
+	inc   int64  // (b+1)/2
+}
+
+func newSearcher(h *rangeHeader) *searcher {
+	sh := &sieveHeader{a: h.a, b: h.b, k: h.k, j: h.k, cap: h.cap}
+	sv := newSieve(sh)
+	s := &searcher{h: h, sv: sv, k: h.k, d: h.k / 2, half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
+		limHi: ^uint64(0)/uint64(h.a) - 1}
+	p := big.NewInt(1)
+	for i := 0; i <= h.k; i++ {
+		s.pow = append(s.pow, new(big.Int).Set(p))
+		p.Mul(p, sv.A)
+	}
+	s.small = s.smallBound()
+	// The stubs: the classes open at depth d, in trie order.
+	var walkStubs func(t, sOdd int, v, res uint64)
+	walkStubs = func(t, sOdd int, v, res uint64) {
+		if t == s.d {
+			s.stubs = append(s.stubs, res)
+			return
+		}
+		for c := uint64(0); c < 2; c++ {
+			vc := v + c*sv.apow[sOdd]
+			if vc&1 == 0 && sv.closesAt(t+1, sOdd) {
+				continue
+			}
+			nv, ns := sv.step(vc, sOdd)
+			walkStubs(t+1, ns, nv, res|c<<t)
+		}
+	}
+	walkStubs(0, 0, 0, 0)
+	return s
+}
+
+// smallBound: for b > 0 the exception bound; for b < 0 the largest n for
+// which an open prefix of i steps with s odd ones might take n below
+// itself, n < s*|b|*a^s / (2*(a^s - 2^i)), i the last depth at which s odd
+// steps are still open (one below the bit length of a^s, at most k).
+func (s *searcher) smallBound() *big.Int {
+	if s.h.b > 0 {
+		return s.sv.exceptionLimit()
+	}
+	limit := new(big.Int)
+	for odd := 1; odd <= s.k; odd++ {
+		p := s.pow[odd]
+		i := min(p.BitLen()-1, s.k)
+		num := new(big.Int).Mul(p, big.NewInt(int64(odd)*int64(-s.h.b)))
+		den := new(big.Int).Sub(p, new(big.Int).Lsh(big.NewInt(1), uint(i)))
+		den.Lsh(den, 1)
+		if q := num.Div(num, den); q.Cmp(limit) > 0 {
+			limit = q
+		}
+	}
+	return limit
+}
+
+// next is T(x), exactly.
+func (s *searcher) next(x wide) wide {
+	if x.big == nil {
+		if x.lo&1 == 0 {
+			return wide{hi: x.hi >> 1, lo: x.lo>>1 | x.hi<<63}
+		}
+		if x.hi < s.limHi {
+			return s.oddStep(x)
+		}
+	}
+	z := new(big.Int).Set(x.toBig())
+	s.sv.apply(z)
+	return fromBig(z)
+}
+
+// oddStep is (a*x + b)/2 for odd x below the limit: (x >> 1) + x*(a-1)/2 +
+// (b+1)/2.
+func (s *searcher) oddStep(x wide) wide {
+	mh, ml := bits.Mul64(x.lo, s.half)
+	mh += x.hi * s.half
+	var c, borrow uint64
+	if s.inc >= 0 {
+		ml, c = bits.Add64(ml, uint64(s.inc), 0)
+		mh += c
+	} else {
+		ml, borrow = bits.Sub64(ml, uint64(-s.inc), 0)
+		mh -= borrow
+	}
+	lo, c := bits.Add64(x.lo>>1|x.hi<<63, ml, 0)
+	return wide{hi: x.hi>>1 + mh + c, lo: lo}
+}
+
+func (s *searcher) plus(x wide, odd int) wide {
+	return fromBig(new(big.Int).Add(x.toBig(), s.pow[odd]))
+}
+
+// outcome is what iterating one number found.
+type outcome struct {
+	fate     byte // 1 drops, 2 cycle, 3 undecided
+	sigma    uint32
+	cycleMin *big.Int
+}
+
+// decide iterates n from x = T^i(n) until it drops below n, within the
+// cap; past the cap the fate rule of section 1 decides it.
+func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
+	nw := fromBig(n)
+	for ; i <= s.h.cap; i++ {
+		if nw.big == nil && x.big == nil {
+			if x.hi < nw.hi || (x.hi == nw.hi && x.lo < nw.lo) {
+				return outcome{fate: 1, sigma: i}
+			}
+		} else if x.toBig().Cmp(n) < 0 {
+			return outcome{fate: 1, sigma: i}
+		}
+		if i == s.h.cap {
+			break
+		}
+		x = s.next(x)
+	}
+	e := s.sv.fateOf(n)
+	return outcome{fate: e.fate, sigma: e.steps, cycleMin: e.cycleMin}
+}
+
+// tallies accumulates what one part of a block finds; offsets are from the
+// block's first number x0.
+type tallies struct {
+	counts   [5]uint64
+	sum      *big.Int
+	maxSigma uint32
+	maxAt    uint64
+	points   []offPoint // the records among the numbers searched, increasing
+	firstAt  map[int]uint64
+	cycles   map[string]*cycleCount
+	undec    []uint64
+}
+
+type offPoint struct {
+	off   uint64
+	sigma uint32
+}
+
+func newTallies() *tallies {
+	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*cycleCount{}}
+}
+
+func (t *tallies) drop(off uint64, sigma uint32, rule int) {
+	t.counts[rule]++
+	t.sum.Add(t.sum, big.NewInt(int64(sigma)))
+	if sigma > t.maxSigma || (sigma == t.maxSigma && off < t.maxAt) {
+		t.maxSigma, t.maxAt = sigma, off
+	}
+	t.stair(offPoint{off, sigma})
+}
+
+// stair keeps in t.points only the prefix maxima (the records) of the
+// points seen: a point stays unless one before it has a stopping time at
+// least as large.
+func (t *tallies) stair(p offPoint) {
+	i := sort.Search(len(t.points), func(i int) bool { return t.points[i].off >= p.off })
+	if i > 0 && t.points[i-1].sigma >= p.sigma {
+		return
+	}
+	j := i
+	for j < len(t.points) && t.points[j].sigma <= p.sigma {
+		j++
+	}
+	t.points = append(t.points[:i], append([]offPoint{p}, t.points[j:]...)...)
+}
+
+func (t *tallies) note(off uint64, r outcome, rule int) {
+	switch r.fate {
+	case 1:
+		t.drop(off, r.sigma, rule)
+	case 2:
+		t.counts[3]++
+		key := r.cycleMin.String()
+		if c := t.cycles[key]; c != nil {
+			c.count.Add(c.count, big.NewInt(1))
+		} else {
+			t.cycles[key] = &cycleCount{min: r.cycleMin, count: big.NewInt(1)}
+		}
+	default:
+		t.counts[4]++
+		t.undec = append(t.undec, off)
+	}
+}
+
+// part is the work on one block restricted to the offsets [from, to).
+type part struct {
+	s        *searcher
+	x0       *big.Int
+	from, to uint64
+	t        *tallies
+}
+
+// inClass returns how many offsets of [from, to) are congruent to res mod
+// 2^t, and the first.
+func (p *part) inClass(res uint64, t int) (uint64, uint64) {
+	m := uint64(1) << t
+	first := res
+	if p.from > res {
+		first = res + (p.from-res+m-1)/m*m
+	}
+	if first >= p.to {
+		return 0, 0
+	}
+	return (p.to-first-1)/m + 1, first
+}
+
+// classes walks the classes below res mod 2^t (s odd steps, value v =
+// T^t(res)) down to depth end: a closing class justifies its members, each
+// with stopping time t; a survivor class has each member searched.
+func (p *part) classes(t, odd int, v wide, res uint64, end int) {
+	s := p.s
+	if t == end {
+		if end == s.k {
+			p.survivor(res, odd, v)
+		}
+		return
+	}
+	for c := uint64(0); c < 2; c++ {
+		vc := v
+		if c == 1 {
+			vc = s.plus(v, odd)
+		}
+		if vc.parity() == 0 && s.sv.closesAt(t+1, odd) {
+			cls := res | c<<t
+			if n, first := p.inClass(cls, t+1); n > 0 {
+				p.t.counts[0] += n
+				p.t.sum.Add(p.t.sum, new(big.Int).Mul(new(big.Int).SetUint64(n), big.NewInt(int64(t+1))))
+				if f, ok := p.t.firstAt[t+1]; !ok || first < f {
+					p.t.firstAt[t+1] = first
+				}
+			}
+			continue
+		}
+		next := odd + int(vc.parity())
+		p.classes(t+1, next, s.next(vc), res|c<<t, end)
+	}
+}
+
+// survivor searches every member n = 2^k*q + res, starting k steps on:
+// T^k(n) = a^s*q + T^k(res).
+func (p *part) survivor(res uint64, odd int, tk wide) {
+	s := p.s
+	n, off := p.inClass(res, s.k)
+	for ; n > 0; n, off = n-1, off+1<<s.k {
+		num := new(big.Int).Add(p.x0, new(big.Int).SetUint64(off))
+		x := new(big.Int).Rsh(num, uint(s.k))
+		x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
+		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), 1)
+	}
+}
+
+// derive computes the summary of block i from scratch, the work spread
+// over the stubs.
+func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
+	h := s.h
+	x0 := new(big.Int).Add(h.first, big.NewInt(int64(i)))
+	x0.Lsh(x0, uint(h.e))
+	lo := new(big.Int).Set(x0)
+	if lo.Cmp(h.lo) < 0 {
+		lo.Set(h.lo)
+	}
+	hi := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
+	if hi.Cmp(h.hi) > 0 {
+		hi.Set(h.hi)
+	}
+	from := new(big.Int).Sub(lo, x0).Uint64()
+	to := new(big.Int).Sub(hi, x0).Uint64()
+	split := from // offsets below split are at most the small bound
+	if above := new(big.Int).Sub(s.small, x0); above.Sign() >= 0 {
+		split = max(from, min(to, above.Uint64()+1))
+	}
+
+	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies()}}
+	small := parts[0]
+	for off := small.from; off < small.to; off++ {
+		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
+		small.t.note(off, s.decide(n, fromBig(n), 0), 2)
+	}
+	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies()}
+	parts = append(parts, top)
+	top.classes(0, 0, wide{}, 0, s.d)
+	var wg sync.WaitGroup
+	sem := make(chan struct{}, max(workers, 1))
+	for _, res := range s.stubs {
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies()}
+		parts = append(parts, p)
+		wg.Add(1)
+		sem <- struct{}{}
+		go func() {
+			defer func() { <-sem; wg.Done() }()
+			v, odd := wide{lo: res}, 0
+			for range s.d {
+				odd += int(v.parity())
+				v = s.next(v)
+			}
+			p.classes(s.d, odd, v, res, s.k)
+		}()
+	}
+	wg.Wait()
+	return collect(uint32(i), x0, parts)
+}
+
+// collect adds up the parts of a block into its record.
+func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
+	b := &blockRec{index: index}
+	sum := &b.sum
+	var counts [5]uint64
+	total := new(big.Int)
+	var pts []offPoint
+	var maxSigma uint32
+	var maxAt uint64
+	cycles := map[string]*cycleCount{}
+	var undec []uint64
+	firstAt := map[int]uint64{}
+	for _, p := range parts {
+		t := p.t
+		for i, c := range t.counts {
+			counts[i] += c
+		}
+		total.Add(total, t.sum)
+		pts = append(pts, t.points...)
+		for step, off := range t.firstAt {
+			if f, ok := firstAt[step]; !ok || off < f {
+				firstAt[step] = off
+			}
+		}
+		if t.maxSigma > maxSigma || (t.maxSigma == maxSigma && t.maxSigma > 0 && t.maxAt < maxAt) {
+			maxSigma, maxAt = t.maxSigma, t.maxAt
+		}
+		for key, c := range t.cycles {
+			if m := cycles[key]; m != nil {
+				m.count.Add(m.count, c.count)
+			} else {
+				cycles[key] = &cycleCount{min: c.min, count: new(big.Int).Set(c.count)}
+			}
+		}
+		undec = append(undec, t.undec...)
+	}
+	for step, off := range firstAt {
+		sigma := uint32(step)
+		pts = append(pts, offPoint{off, sigma})
+		if sigma > maxSigma || (sigma == maxSigma && off < maxAt) {
+			maxSigma, maxAt = sigma, off
+		}
+	}
+	abs := func(off uint64) *big.Int { return new(big.Int).Add(x0, new(big.Int).SetUint64(off)) }
+	for i, c := range counts {
+		sum.counts[i] = new(big.Int).SetUint64(c)
+	}
+	sum.sum = total
+	if maxSigma > 0 {
+		sum.maxSigma, sum.maxAt = maxSigma, abs(maxAt)
+	}
+	// Records: the numbers whose stopping time exceeds that of every
+	// smaller number of the block that drops.
+	sort.Slice(pts, func(i, j int) bool {
+		return pts[i].off < pts[j].off || (pts[i].off == pts[j].off && pts[i].sigma > pts[j].sigma)
+	})
+	var best uint32
+	for _, p := range pts {
+		if p.sigma > best {
+			sum.records = append(sum.records, point{n: abs(p.off), sigma: p.sigma})
+			best = p.sigma
+		}
+	}
+	for _, c := range cycles {
+		sum.cycles = append(sum.cycles, *c)
+	}
+	sortCycles(sum.cycles)
+	sort.Slice(undec, func(i, j int) bool { return undec[i] < undec[j] })
+	for _, off := range undec {
+		b.undecided = append(b.undecided, abs(off))
+	}
+	return b, b.undecided
+}
+
+func defaultWorkers(w int) int {
+	if w <= 0 {
+		return runtime.GOMAXPROCS(0)
+	}
+	return w
+}

@@ -1,0 +1,105 @@
+package main
+
+import (
+	"fmt"
+	"strings"
+
+	"descent/cert"
+	"descent/check"
+)
+
+// rangeFacts is the claim of a range certificate, from its header (show,
+// emit) or from the checker's report (check).
+type rangeFacts struct {
+	Map, Lo, Hi, SieveRoot string
+	K, E                   int
+	Cap                    uint32
+	Counts                 check.RangeCounts
+	Records                []check.RecordReport
+	Max                    *check.RecordReport
+	Cycles                 []check.CycleReport
+}
+
+func num(x fmt.Stringer) check.Num { return check.Num(x.String()) }
+
+func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
+	t := &h.Totals
+	f := rangeFacts{Map: h.Map.String(), Lo: h.Lo.String(), Hi: h.Hi.String(), SieveRoot: h.SieveRoot.String(), K: h.K, E: h.E, Cap: h.Cap,
+		Counts: check.RangeCounts{Sieve: num(t.Sieve), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
+			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum)}}
+	for _, p := range t.Records {
+		f.Records = append(f.Records, check.RecordReport{N: num(p.N), StoppingTime: p.Sigma})
+	}
+	if t.MaxAt != nil {
+		f.Max = &check.RecordReport{N: num(t.MaxAt), StoppingTime: t.MaxSigma}
+	}
+	for _, c := range t.Cycles {
+		f.Cycles = append(f.Cycles, check.CycleReport{Min: num(c.Min), Count: num(c.Count)})
+	}
+	return f
+}
+
+func rangeFactsFromReport(r *check.Report) rangeFacts {
+	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap,
+		Records: r.Records, Max: r.MaxStoppingTime, Cycles: r.Cycles}
+	if r.Counts != nil {
+		f.Counts = *r.Counts
+	}
+	return f
+}
+
+func (f rangeFacts) cycleList() string {
+	var parts []string
+	for _, c := range f.Cycles {
+		parts = append(parts, string(c.Min))
+	}
+	return strings.Join(parts, ", ")
+}
+
+func (f rangeFacts) onlyOne() bool { return len(f.Cycles) == 1 && f.Cycles[0].Min == "1" }
+
+// summary is the claim in one line.
+func (f rangeFacts) summary() string {
+	s := fmt.Sprintf("%s over [%s, %s): %s numbers justified by the sieve, %s by search, %s small ones directly",
+		f.Map, f.Lo, f.Hi, f.Counts.Sieve, f.Counts.Search, f.Counts.Small)
+	if len(f.Cycles) > 0 {
+		s += fmt.Sprintf("; %s reach a cycle (through %s)", f.Counts.Cycle, f.cycleList())
+	}
+	s += fmt.Sprintf("; %s undecided", f.Counts.Undecided)
+	if f.Max != nil {
+		s += fmt.Sprintf("; largest stopping time %d, first at n = %s", f.Max.StoppingTime, f.Max.N)
+	}
+	return s
+}
+
+// sentence is the claim fit to quote.
+func (f rangeFacts) sentence() string {
+	s := fmt.Sprintf("For T(n) = n/2 for even n, (%s)/2 for odd n, every n in [%s, %s) either drops below itself "+
+		"(T^i(n) < n for some i; its stopping time is the least such i) or reaches a cycle without dropping, "+
+		"or is listed as undecided within %d steps.", f.Map, f.Lo, f.Hi, f.Cap)
+	if len(f.Cycles) > 0 {
+		s += fmt.Sprintf(" The numbers that do not drop reach the cycles whose smallest members are %s.", f.cycleList())
+	}
+	target := "one of those cycles"
+	if f.Map == "3n+1" && (f.onlyOne() || len(f.Cycles) == 0) {
+		target = "1"
+	}
+	except := ""
+	if f.Counts.Undecided != "0" {
+		except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit reaches one of them", f.Counts.Undecided)
+	}
+	// A number that drops reaches whatever the smaller number reaches.
+	if f.Lo == "1" || f.Lo == "2" {
+		s += fmt.Sprintf(" Hence, by strong induction, every n < %s reaches %s%s.", f.Hi, target, except)
+	} else {
+		s += fmt.Sprintf(" By strong induction, if every m < %s reaches %s, then so does every n < %s%s; "+
+			"a certificate for [1, %s) would show the premise.", f.Lo, target, f.Hi, except, f.Lo)
+	}
+	return s
+}
+
+func (f rangeFacts) caveat() string {
+	return fmt.Sprintf("This is a claim about [%s, %s) only, resting on the sieve certificate %s (k = %d), which must be "+
+		"checked with it. It says nothing about numbers at or above %s, and is not a proof of the 3n+1 conjecture "+
+		"or of any statement about all integers.", f.Lo, f.Hi, f.SieveRoot, f.K, f.Hi)
+}

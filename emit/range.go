@@ -1,0 +1,555 @@
+package emit
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"math/big"
+	"math/bits"
+	"runtime"
+	"sort"
+
+	"golang.org/x/sync/errgroup"
+
+	"descent/cert"
+)
+
+// RangeParams names a range certificate: the sieve it rests on (its header
+// and root), the range [Lo, Hi), the block exponent E (blocks are aligned
+// intervals of 2^E numbers; 0 picks k+4) and the step cap of the search.
+type RangeParams struct {
+	Sieve     *cert.SieveHeader
+	SieveRoot cert.Hash
+	Lo, Hi    *big.Int
+	E         int
+	Cap       uint32
+}
+
+// RangeOptions tune a run without changing its output.
+type RangeOptions struct {
+	Workers int
+	// Done holds the records of blocks already completed by an earlier run
+	// of the same parameters, in order; the run goes on after them.
+	Done [][]byte
+	// Block is called with each newly completed block record, in order,
+	// before the next block starts (to journal it).
+	Block func(rec []byte) error
+	// Progress is called after each block with the blocks done and the
+	// numbers covered so far.
+	Progress func(done, total int, numbers *big.Int)
+}
+
+// RangeResult describes a written range certificate.
+type RangeResult struct {
+	Header *cert.RangeHeader
+	Root   cert.Hash
+	Size   int64
+}
+
+// DefaultRangeCap is the step cap of the search when none is given
+// (common practice, no source: far above the largest stopping time known
+// below 2^64, which is under 2000 steps of T).
+const DefaultRangeCap = 100000
+
+// NormalizeRange fills in defaults and checks what a range certificate
+// needs of its parameters.
+func NormalizeRange(p *RangeParams) error {
+	h := p.Sieve
+	if h.J != h.K {
+		return fmt.Errorf("the sieve has j = %d < k = %d; a range certificate needs a sieve with j = k", h.J, h.K)
+	}
+	if p.E == 0 {
+		p.E = min(h.K+4, cert.MaxBlockExp)
+	}
+	if p.Cap == 0 {
+		p.Cap = DefaultRangeCap
+	}
+	switch {
+	case p.E < h.K || p.E > cert.MaxBlockExp:
+		return fmt.Errorf("block exponent %d: want %d (the sieve's k) to %d", p.E, h.K, cert.MaxBlockExp)
+	case p.Cap <= uint32(h.K) || p.Cap > cert.MaxCap:
+		return fmt.Errorf("cap %d: want more than k = %d and at most %d", p.Cap, h.K, cert.MaxCap)
+	case p.Lo == nil || p.Hi == nil || p.Lo.Sign() <= 0 || p.Lo.Cmp(p.Hi) >= 0:
+		return fmt.Errorf("range [%v, %v): want 1 <= from < to", p.Lo, p.Hi)
+	case p.Hi.BitLen() > 8*cert.MaxNatBytes:
+		return fmt.Errorf("to = %v: the format carries numbers of at most %d bits", p.Hi, 8*cert.MaxNatBytes)
+	}
+	if _, n := cert.BlockSpan(p.Lo, p.Hi, p.E); !n.IsInt64() || n.Int64() > cert.MaxRecords {
+		return fmt.Errorf("the range has %v blocks of 2^%d; the format allows %d: use a larger -block", n, p.E, cert.MaxRecords)
+	}
+	return nil
+}
+
+// CheckSieveRoot regenerates the sieve certificate that h describes and
+// makes sure its root is root: a range certificate may only name the one
+// canonical, true sieve for its map and k.
+func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) error {
+	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap}, Options{Workers: workers})
+	if err != nil {
+		return err
+	}
+	if res.Root != root {
+		return fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d",
+			root, res.Root, h.Map, h.K, h.J, h.Cap)
+	}
+	return nil
+}
+
+type discard struct{}
+
+func (discard) WriteAt(p []byte, _ int64) (int, error) { return len(p), nil }
+
+// ranger holds what every block of a run needs.
+type ranger struct {
+	r     *rules
+	p     RangeParams
+	k, d  int
+	small *big.Int // N0: numbers up to it are iterated directly
+	stubs []uint64 // residues of the classes open at depth d, in trie order
+	first *big.Int // index of the first block
+}
+
+// Range searches [Lo, Hi) and writes the range certificate to w.
+func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*RangeResult, error) {
+	if err := NormalizeRange(&p); err != nil {
+		return nil, err
+	}
+	r, err := newRules(p.Sieve.Map, p.Sieve.K, p.Sieve.K)
+	if err != nil {
+		return nil, err
+	}
+	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
+	gen := encoder{r: r, end: g.d, tb: -1, tally: newTally(r.j)}
+	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
+	if err := gen.top(0, 0, 0, 0); err != nil {
+		return nil, err
+	}
+	first, nblocks := cert.BlockSpan(p.Lo, p.Hi, p.E)
+	g.first = first
+	total := int(nblocks.Int64())
+	if len(o.Done) > total {
+		return nil, fmt.Errorf("emit: %d completed blocks for a range of %d", len(o.Done), total)
+	}
+	workers := o.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+
+	recs := make([][]byte, 0, total)
+	var blocks []*cert.Block
+	covered := new(big.Int)
+	for i := 0; i < total; i++ {
+		var b *cert.Block
+		if i < len(o.Done) {
+			if b, err = cert.ParseBlock(o.Done[i], 0); err != nil || b.Index != uint32(i) {
+				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged: %v", i, err)
+			}
+			recs = append(recs, o.Done[i])
+		} else {
+			if b, err = g.block(ctx, i, workers); err != nil {
+				return nil, err
+			}
+			rec, err := b.Marshal()
+			if err != nil {
+				return nil, err
+			}
+			if o.Block != nil {
+				if err := o.Block(rec); err != nil {
+					return nil, err
+				}
+			}
+			recs = append(recs, rec)
+		}
+		blocks = append(blocks, b)
+		lo, hi := g.span(i)
+		covered.Add(covered, hi.Sub(hi, lo))
+		if o.Progress != nil {
+			o.Progress(i+1, total, covered)
+		}
+	}
+
+	h := &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap,
+		Lo: p.Lo, Hi: p.Hi, Blocks: total, Totals: totals(blocks)}
+	hb, err := h.Marshal()
+	if err != nil {
+		return nil, err
+	}
+	cw, err := cert.NewWriter(w, hb)
+	if err != nil {
+		return nil, err
+	}
+	for _, rec := range recs {
+		if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
+			return nil, err
+		}
+	}
+	root, size, err := cw.Close()
+	if err != nil {
+		return nil, err
+	}
+	return &RangeResult{Header: h, Root: root, Size: size}, nil
+}
+
+// span returns the numbers block i covers: [lo, hi).
+func (g *ranger) span(i int) (lo, hi *big.Int) {
+	x0 := new(big.Int).Add(g.first, big.NewInt(int64(i)))
+	x0.Lsh(x0, uint(g.p.E))
+	lo = maxBig(x0, g.p.Lo)
+	hi = new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(g.p.E)))
+	if hi.Cmp(g.p.Hi) > 0 {
+		hi.Set(g.p.Hi)
+	}
+	return lo, hi
+}
+
+func maxBig(x, y *big.Int) *big.Int {
+	if x.Cmp(y) >= 0 {
+		return new(big.Int).Set(x)
+	}
+	return new(big.Int).Set(y)
+}
+
+// unit is one piece of a block's work: the numbers of the block at
+// offsets [from, to) from the block start x0, restricted to the classes
+// below one stub, or to the closing classes of the top of the trie, or to
+// the small numbers.
+type unit struct {
+	g        *ranger
+	x0       *big.Int
+	x0u      uint64 // x0 when the whole block is below 2^64 (fast)
+	fast     bool
+	from, to uint64
+	acc      acc
+	jobs     []job // scratch for the lane search
+}
+
+// block computes the summary of block i.
+func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error) {
+	lo, hi := g.span(i)
+	x0 := new(big.Int).Add(g.first, big.NewInt(int64(i)))
+	x0.Lsh(x0, uint(g.p.E))
+	off := func(x *big.Int) uint64 { return new(big.Int).Sub(x, x0).Uint64() }
+	from, to := off(lo), off(hi)
+	// Numbers at or below N0 are iterated directly.
+	split := from
+	if x0.Cmp(g.small) <= 0 {
+		split = min(max(off(new(big.Int).Add(g.small, big.NewInt(1))), from), to)
+	}
+	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(g.p.E)))
+	fast := end.BitLen() <= 64
+
+	units := make([]*unit, 0, len(g.stubs)+2)
+	newUnit := func(a, b uint64) *unit {
+		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k), jobs: make([]job, 0, 1024)}
+		if fast {
+			u.x0u = x0.Uint64()
+		}
+		units = append(units, u)
+		return u
+	}
+	small := newUnit(from, split)
+	top := newUnit(split, to)
+	stubs := make([]*unit, len(g.stubs))
+	for s := range g.stubs {
+		stubs[s] = newUnit(split, to)
+	}
+
+	eg, ectx := errgroup.WithContext(ctx)
+	eg.SetLimit(workers)
+	eg.Go(func() error { small.smallNumbers(); return nil })
+	eg.Go(func() error { g.r.leaves(0, 0, exact{}, 0, g.d, top); return nil })
+	for s, res := range g.stubs {
+		eg.Go(func() error {
+			if err := ectx.Err(); err != nil {
+				return err
+			}
+			sv, v := g.r.stubStart(res, g.d)
+			g.r.leaves(g.d, sv, v, res, g.k, stubs[s])
+			stubs[s].flush()
+			return nil
+		})
+	}
+	if err := eg.Wait(); err != nil {
+		return nil, err
+	}
+	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
+	return merge(uint32(i), x0, units)
+}
+
+// members counts the offsets in [from, to) congruent to res mod 2^t and
+// returns the first of them.
+func members(res uint64, t int, from, to uint64) (count, first uint64) {
+	step := uint64(1) << t
+	firstAt := func(x uint64) uint64 { // the first member >= x
+		if x <= res {
+			return res
+		}
+		return res + (x-res+step-1)/step*step
+	}
+	f := firstAt(from)
+	if f >= to {
+		return 0, 0
+	}
+	return (to-1-f)/step + 1, f
+}
+
+// closed: every member above N0 of a closing class has stopping time t.
+func (u *unit) closed(res uint64, t int) {
+	n, first := members(res, t, u.from, u.to)
+	if n == 0 {
+		return
+	}
+	u.acc.count[cSieve] += n
+	u.acc.addSigma(n, uint64(t))
+	if n := u.acc.first[t]; !u.acc.hasFirst[t] || first < n {
+		u.acc.first[t], u.acc.hasFirst[t] = first, true
+	}
+}
+
+// survivor searches every member of the survivor class res mod 2^k,
+// jumping k steps at once: T^k(2^k*q + res) = a^s*q + T^k(res).
+func (u *unit) survivor(res uint64, s int, tk exact) {
+	n, off := members(res, u.g.k, u.from, u.to)
+	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
+	if u.fast && tk.b == nil && r.powFits[s] && r.a == 3 && r.m.B == 1 {
+		for ; n > 0; n, off = n-1, off+1<<k {
+			num := u.x0u + off
+			x, ok := r.powU[s].mul64(num >> k)
+			if ok {
+				x, ok = x.add(tk.u)
+			}
+			if !ok || x.hi >= laneLimit {
+				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jump(num, s, tk), uint32(k), limit), cSearch)
+				continue
+			}
+			u.jobs = append(u.jobs, job{n: num, hi: x.hi, lo: x.lo, off: off})
+			if len(u.jobs) == cap(u.jobs) {
+				u.flush()
+			}
+		}
+		return
+	}
+	for ; n > 0; n, off = n-1, off+1<<k {
+		var o outcome
+		if u.fast && tk.b == nil && r.powFits[s] {
+			num := u.x0u + off
+			x, ok := r.powU[s].mul64(num >> k)
+			if ok {
+				x, ok = x.add(tk.u)
+			}
+			if ok {
+				o = r.searchFrom(num, x, uint32(k), limit)
+				u.acc.note(off, o, cSearch)
+				continue
+			}
+		}
+		num := new(big.Int).Add(u.x0, new(big.Int).SetUint64(off))
+		u.acc.note(off, r.searchBig(num, u.jumpBig(num, s, tk), uint32(k), limit), cSearch)
+	}
+}
+
+// flush searches the jobs gathered so far, four lanes at a time.
+func (u *unit) flush() {
+	r, k, limit := u.g.r, uint32(u.g.k), u.g.p.Cap
+	search3Lanes(u.jobs, k, limit, func(j *job, sigma uint32) {
+		if sigma > 0 {
+			u.acc.note(j.off, outcome{fate: cert.Descends, sigma: sigma}, cSearch)
+			return
+		}
+		u.acc.note(j.off, r.searchFrom(j.n, u128{j.hi, j.lo}, k, limit), cSearch)
+	})
+	u.jobs = u.jobs[:0]
+}
+
+// jump returns T^k(num) = a^s*(num >> k) + T^k(res), exactly.
+func (u *unit) jump(num uint64, s int, tk exact) *big.Int {
+	return u.jumpBig(new(big.Int).SetUint64(num), s, tk)
+}
+
+func (u *unit) jumpBig(num *big.Int, s int, tk exact) *big.Int {
+	x := new(big.Int).Rsh(num, uint(u.g.k))
+	return x.Mul(x, u.g.r.powBig(s)).Add(x, tk.big())
+}
+
+// smallNumbers iterates the numbers at or below N0 directly.
+func (u *unit) smallNumbers() {
+	for off := u.from; off < u.to; off++ {
+		n := new(big.Int).Add(u.x0, new(big.Int).SetUint64(off))
+		u.acc.note(off, u.g.r.iterate(n, u.g.p.Cap), cSmall)
+	}
+}
+
+const (
+	cSieve = iota
+	cSearch
+	cSmall
+	cCycle
+	cUndecided
+)
+
+// acc accumulates a summary over offsets within one block.
+type acc struct {
+	count    [5]uint64
+	sum      u128
+	maxSigma uint32
+	maxAt    uint64
+	stairs   []point // staircase: increasing off and sigma
+	first    []uint64
+	hasFirst []bool
+	cycles   map[string]*cycleAcc
+	undec    []uint64
+}
+
+type point struct {
+	off   uint64
+	sigma uint32
+}
+
+type cycleAcc struct {
+	min   *big.Int
+	count uint64
+}
+
+func newAcc(k int) acc {
+	return acc{first: make([]uint64, k+1), hasFirst: make([]bool, k+1), cycles: map[string]*cycleAcc{}}
+}
+
+func (a *acc) addSigma(n, sigma uint64) {
+	hi, lo := bits.Mul64(n, sigma)
+	a.sum, _ = a.sum.add(u128{hi, lo}) // at most 2^62 numbers of stopping time < 2^24 per block
+}
+
+// note records the outcome of a number that was iterated.
+func (a *acc) note(off uint64, o outcome, rule int) {
+	switch o.fate {
+	case cert.Descends:
+		a.count[rule]++
+		a.addSigma(1, uint64(o.sigma))
+		a.point(off, o.sigma)
+	case cert.Cycle:
+		a.count[cCycle]++
+		key := o.cycleMin.String()
+		if c := a.cycles[key]; c != nil {
+			c.count++
+		} else {
+			a.cycles[key] = &cycleAcc{min: o.cycleMin, count: 1}
+		}
+	default:
+		a.count[cUndecided]++
+		a.undec = append(a.undec, off)
+	}
+}
+
+// point adds a number with its stopping time to the staircase of records
+// and to the maximum.
+func (a *acc) point(off uint64, sigma uint32) {
+	if sigma > a.maxSigma || (sigma == a.maxSigma && off < a.maxAt) {
+		a.maxSigma, a.maxAt = sigma, off
+	}
+	// The records are the prefix maxima: (off, sigma) is one unless a
+	// point before it has a stopping time at least as large.
+	i := sort.Search(len(a.stairs), func(i int) bool { return a.stairs[i].off >= off })
+	if i > 0 && a.stairs[i-1].sigma >= sigma {
+		return
+	}
+	j := i
+	for j < len(a.stairs) && a.stairs[j].sigma <= sigma {
+		j++
+	}
+	a.stairs = append(a.stairs[:i], append([]point{{off, sigma}}, a.stairs[j:]...)...)
+}
+
+// merge adds up the units of block i into its record.
+func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
+	total := newAcc(len(units[0].acc.first) - 1)
+	var pts []point
+	for _, u := range units {
+		a := &u.acc
+		for c := range a.count {
+			total.count[c] += a.count[c]
+		}
+		total.sum, _ = total.sum.add(a.sum)
+		pts = append(pts, a.stairs...)
+		for t, ok := range a.hasFirst {
+			if ok {
+				pts = append(pts, point{a.first[t], uint32(t)})
+			}
+		}
+		for key, c := range a.cycles {
+			if m := total.cycles[key]; m != nil {
+				m.count += c.count
+			} else {
+				total.cycles[key] = &cycleAcc{min: c.min, count: c.count}
+			}
+		}
+		total.undec = append(total.undec, a.undec...)
+	}
+	sort.Slice(pts, func(i, j int) bool { return pts[i].off < pts[j].off })
+	for _, p := range pts {
+		total.point(p.off, p.sigma)
+	}
+	abs := func(off uint64) *big.Int { return new(big.Int).Add(x0, new(big.Int).SetUint64(off)) }
+	b := &cert.Block{Index: index}
+	s := &b.Summary
+	counts := []**big.Int{&s.Sieve, &s.Search, &s.Small, &s.Cycle, &s.Undecided}
+	for c, p := range counts {
+		*p = new(big.Int).SetUint64(total.count[c])
+	}
+	s.SigmaSum = total.sum.big()
+	if total.maxSigma > 0 {
+		s.MaxSigma, s.MaxAt = total.maxSigma, abs(total.maxAt)
+	}
+	for _, p := range total.stairs {
+		s.Records = append(s.Records, cert.Point{N: abs(p.off), Sigma: p.sigma})
+	}
+	for _, c := range total.cycles {
+		s.Cycles = append(s.Cycles, cert.CycleCount{Min: c.min, Count: new(big.Int).SetUint64(c.count)})
+	}
+	sort.Slice(s.Cycles, func(i, j int) bool { return s.Cycles[i].Min.Cmp(s.Cycles[j].Min) < 0 })
+	sort.Slice(total.undec, func(i, j int) bool { return total.undec[i] < total.undec[j] })
+	if len(total.undec) > cert.MaxUndecided {
+		return nil, fmt.Errorf("block %d has %d undecided numbers, more than a block may list (%d): raise -cap or narrow the range",
+			index, len(total.undec), cert.MaxUndecided)
+	}
+	for _, off := range total.undec {
+		b.UndecidedNs = append(b.UndecidedNs, abs(off))
+	}
+	return b, nil
+}
+
+// totals sums block summaries into the header's: records and the maximum
+// are taken in block order, so the first of equals wins.
+func totals(blocks []*cert.Block) cert.Summary {
+	s := cert.Summary{Sieve: new(big.Int), Search: new(big.Int), Small: new(big.Int), Cycle: new(big.Int),
+		Undecided: new(big.Int), SigmaSum: new(big.Int)}
+	cycles := map[string]*cert.CycleCount{}
+	for _, b := range blocks {
+		for _, pair := range [][2]*big.Int{{s.Sieve, b.Sieve}, {s.Search, b.Search}, {s.Small, b.Small},
+			{s.Cycle, b.Cycle}, {s.Undecided, b.Undecided}, {s.SigmaSum, b.SigmaSum}} {
+			pair[0].Add(pair[0], pair[1])
+		}
+		if b.MaxSigma > s.MaxSigma {
+			s.MaxSigma, s.MaxAt = b.MaxSigma, b.MaxAt
+		}
+		for _, p := range b.Records {
+			if len(s.Records) == 0 || p.Sigma > s.Records[len(s.Records)-1].Sigma {
+				s.Records = append(s.Records, p)
+			}
+		}
+		for _, c := range b.Cycles {
+			key := c.Min.String()
+			if m := cycles[key]; m != nil {
+				m.Count.Add(m.Count, c.Count)
+			} else {
+				cycles[key] = &cert.CycleCount{Min: c.Min, Count: new(big.Int).Set(c.Count)}
+			}
+		}
+	}
+	for _, c := range cycles {
+		s.Cycles = append(s.Cycles, *c)
+	}
+	sort.Slice(s.Cycles, func(i, j int) bool { return s.Cycles[i].Min.Cmp(s.Cycles[j].Min) < 0 })
+	return s
+}
