@@ -110,7 +110,12 @@ type SieveHeader struct {
 
 // SplitDepth is the depth D at which the trie is cut into chunks: the top
 // chunk holds depths 0..D, every other chunk one class open at depth D.
-func SplitDepth(j int) int { return j / 2 }
+// D = min(floor(j/2), 23), so that a certificate has at most 2^23 + 1
+// chunks whatever the map (MaxRecords is 2^24).
+func SplitDepth(j int) int { return min(j/2, MaxSplit) }
+
+// MaxSplit is the largest split depth.
+const MaxSplit = 23
 
 // Marshal returns the complete header: preamble and body.
 func (h *SieveHeader) Marshal() ([]byte, error) {
@@ -156,7 +161,7 @@ func (h *SieveHeader) validate() error {
 		return fmt.Errorf("cap = %d: want 1 <= cap <= %d", h.Cap, MaxCap)
 	case len(h.ClosedAt) != h.J:
 		return fmt.Errorf("%d closing counts for j = %d", len(h.ClosedAt), h.J)
-	case h.Chunks < 2 || h.Chunks > 1+1<<SplitDepth(h.J) || h.Chunks > MaxRecords:
+	case h.Chunks < 2 || h.Chunks > 1+1<<SplitDepth(h.J):
 		return fmt.Errorf("%d chunks: a trie cut at depth %d has 2 to %d", h.Chunks, SplitDepth(h.J), 1+1<<SplitDepth(h.J))
 	case len(h.Exceptions) > MaxExceptions:
 		return fmt.Errorf("%d exceptions exceed %d", len(h.Exceptions), MaxExceptions)

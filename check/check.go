@@ -33,7 +33,7 @@ func File(path string, o Options) *Report {
 	f, err := os.Open(path)
 	if err != nil {
 		rep := &Report{File: path}
-		return rep.fail(&Failure{Class: ErrMalformed, Reason: "malformed", Msg: "cannot read: " + err.Error()})
+		return rep.fail(&Failure{Class: ErrMalformed, Reason: "unreadable", Msg: "cannot read: " + err.Error()})
 	}
 	defer f.Close()
 	rep := Check(f, o)
@@ -74,7 +74,7 @@ func Check(r io.Reader, o Options) *Report {
 		return checkRange(f, rep, o)
 	}
 	sv := newSieve(f.hdr)
-	sv.useMemo = !o.Plain
+	sv.useMemo, sv.work = !o.Plain, newMeter()
 	tally, fl := sv.checkChunks(f, o.Workers)
 	if fl != nil {
 		return rep.fail(fl)
@@ -144,7 +144,7 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 	if fl := sv.leaf(f, 0, rec); fl != nil {
 		return t, fl
 	}
-	top, fl := sv.checkChunk(0, rec, nil, f.offsets[0], nil)
+	top, fl := sv.checkChunk(0, rec, nil, f.offsets[0], nil, f.records-1)
 	if fl != nil {
 		return t, fl
 	}
@@ -180,7 +180,7 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 					jb.out <- result{fl: fl}
 					continue
 				}
-				w, fl := sv.checkChunk(jb.i, jb.rec, &top.stubs[jb.i-1], f.offsets[jb.i], m)
+				w, fl := sv.checkChunk(jb.i, jb.rec, &top.stubs[jb.i-1], f.offsets[jb.i], m, 0)
 				jb.out <- result{w: w, fl: fl}
 			}
 		}()

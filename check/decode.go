@@ -167,6 +167,9 @@ func (f *file) record() ([]byte, *Failure) {
 	return rec, fl
 }
 
+// splitDepth is where the trie is cut into chunks: min(floor(j/2), 23).
+func splitDepth(j int) int { return min(j/2, 23) }
+
 func levelSizes(n int) []int {
 	sizes := []int{n}
 	for n > 1 {
@@ -290,8 +293,8 @@ func (h *sieveHeader) sane(records int) *Failure {
 		return malformed(at+4, "constant %d: the format needs an odd b > -a", h.b)
 	case h.cap < 1 || h.cap > maxCap:
 		return malformed(at+10, "step cap %d: the format allows 1 to %d", h.cap, maxCap)
-	case records < 2 || records-1 > 1<<(h.j/2):
-		return malformed(10, "%d records: a trie cut at depth %d has 1 to %d classes below the top", records, h.j/2, 1<<(h.j/2))
+	case records < 2 || records-1 > 1<<splitDepth(h.j):
+		return malformed(10, "%d records: a trie cut at depth %d has 1 to %d classes below the top", records, splitDepth(h.j), 1<<splitDepth(h.j))
 	}
 	for i, e := range h.exc {
 		if i > 0 && h.exc[i-1].n.Cmp(e.n) >= 0 {

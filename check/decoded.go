@@ -63,7 +63,7 @@ func Decode(r io.Reader) (*Decoded, error) {
 
 // decodeChunk reads the codes of chunk i by the grammar alone.
 func decodeChunk(rec []byte, i, j int, base int64) (DecodedChunk, *Failure) {
-	sv := &sieve{j: j, d: j / 2} // no map: only the framing and the bits are used
+	sv := &sieve{j: j, d: splitDepth(j)} // no map: only the framing and the bits are used
 	w, fl := sv.frame(i, rec, base)
 	if fl == nil {
 		fl = sv.depths(w)

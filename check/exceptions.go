@@ -72,7 +72,9 @@ func (sv *sieve) isException(n *big.Int) (bool, int) {
 func (sv *sieve) fateOf(n *big.Int) exception {
 	x := new(big.Int).Set(n)
 	for i := uint32(1); i <= sv.h.cap; i++ {
-		sv.apply(x)
+		if sv.apply(x); !sv.work.charge(x) {
+			return exception{n: n, fate: 3}
+		}
 		if x.Cmp(n) < 0 {
 			return exception{n: n, fate: 1, steps: i}
 		}
@@ -83,13 +85,18 @@ func (sv *sieve) fateOf(n *big.Int) exception {
 		if y.Cmp(end) == 0 {
 			least := new(big.Int).Set(end)
 			for sv.apply(y); y.Cmp(end) != 0; sv.apply(y) {
+				if !sv.work.charge(y) {
+					return exception{n: n, fate: 3}
+				}
 				if y.Cmp(least) < 0 {
 					least.Set(y)
 				}
 			}
 			return exception{n: n, fate: 2, cycleMin: least}
 		}
-		sv.apply(y)
+		if sv.apply(y); !sv.work.charge(y) {
+			return exception{n: n, fate: 3}
+		}
 	}
 	return exception{n: n, fate: 3}
 }
@@ -117,7 +124,7 @@ func sameFate(x, y exception) bool {
 func (sv *sieve) checkExceptions() *Failure {
 	limit := sv.exceptionLimit()
 	if !limit.IsInt64() || limit.Int64() > maxSearch {
-		return &Failure{Class: ErrMalformed, Reason: "limits",
+		return &Failure{Class: ErrLimits, Reason: "limits",
 			Msg: fmt.Sprintf("map %s with j = %d has exceptions up to %v; this checker tests at most %d numbers", sv.name, sv.j, limit, maxSearch)}
 	}
 	listed := sv.h.exc
@@ -132,6 +139,9 @@ func (sv *sieve) checkExceptions() *Failure {
 			return sv.excFail(bn, "not an exception", "listed", "n = %d is listed as an exception but is none: %s", n, sv.why(bn))
 		case is:
 			got := sv.fateOf(bn)
+			if fl := sv.work.exceeded(); fl != nil {
+				return fl
+			}
 			if !sameFate(got, listed[0]) {
 				return sv.excFail(bn, fateName(got), fateName(listed[0]), "n = %d %s, not as listed: %s", n, fateName(got), fateName(listed[0]))
 			}

@@ -1,9 +1,9 @@
 package check
 
 import (
+	"encoding/binary"
 	"fmt"
 	"math/big"
-	"math/rand/v2"
 	"sort"
 
 	"golang.org/x/crypto/blake2b"
@@ -72,6 +72,9 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 	}
 	for _, i := range chosen {
 		want, _ := s.derive(i, defaultWorkers(o.Workers))
+		if fl := s.sv.work.exceeded(); fl != nil {
+			return rep.fail(fl)
+		}
 		if fl := compareBlock(i, want, blocks[i]); fl != nil {
 			return rep.fail(fl)
 		}
@@ -80,21 +83,18 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 	return rep
 }
 
-// sample picks n distinct blocks of m with a generator seeded from the
-// root and the reader's seed, so the writer cannot know which will be
-// audited.
+// sample picks n distinct blocks of m (SPEC.md, "Audits"): with key =
+// BLAKE2b-256("descent audit" 00 || root || seed), the c-th candidate is
+// the first 8 bytes of BLAKE2b-256(key || c), as a big-endian integer,
+// mod m, for c = 0, 1, 2, ...; repeats are skipped. The root fixes the
+// draw before anyone chooses a seed, so the writer cannot steer it.
 func sample(root [hashLen]byte, seed string, m, n int) []int {
-	d, _ := blake2b.New256(nil)
-	d.Write([]byte("descent audit\x00"))
-	d.Write(root[:])
-	d.Write([]byte(seed))
-	var key [32]byte
-	d.Sum(key[:0])
-	rng := rand.New(rand.NewChaCha8(key))
+	key := blake2b.Sum256(append(append([]byte("descent audit\x00"), root[:]...), seed...))
 	seen := map[int]bool{}
 	var out []int
-	for len(out) < n {
-		if i := rng.IntN(m); !seen[i] {
+	for c := uint64(0); len(out) < n; c++ {
+		h := blake2b.Sum256(binary.BigEndian.AppendUint64(key[:], c))
+		if i := int(binary.BigEndian.Uint64(h[:8]) % uint64(m)); !seen[i] {
 			seen[i] = true
 			out = append(out, i)
 		}

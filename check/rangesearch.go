@@ -64,7 +64,8 @@ type searcher struct {
 func newSearcher(h *rangeHeader) *searcher {
 	sh := &sieveHeader{a: h.a, b: h.b, k: h.k, j: h.k, cap: h.cap}
 	sv := newSieve(sh)
-	s := &searcher{h: h, sv: sv, k: h.k, d: h.k / 2, half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
+	sv.work = newMeter()
+	s := &searcher{h: h, sv: sv, k: h.k, d: splitDepth(h.k), half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
 		limHi: ^uint64(0)/uint64(h.a) - 1}
 	p := big.NewInt(1)
 	for i := 0; i <= h.k; i++ {
@@ -172,7 +173,9 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 		if i == s.h.cap {
 			break
 		}
-		x = s.next(x)
+		if x = s.next(x); x.big != nil && !s.sv.work.charge(x.big) {
+			return outcome{fate: 3}
+		}
 	}
 	e := s.sv.fateOf(n)
 	return outcome{fate: e.fate, sigma: e.steps, cycleMin: e.cycleMin}

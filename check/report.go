@@ -14,11 +14,14 @@ import (
 var (
 	ErrMalformed = errors.New("malformed")
 	ErrInvalid   = errors.New("invalid")
+	// ErrLimits: the certificate asks for more work than the checker
+	// allows; it is neither shown valid nor shown invalid (exit 2).
+	ErrLimits = errors.New("beyond limits")
 )
 
 // Failure is the first thing found wrong, with where it was found.
 type Failure struct {
-	Class  error  // ErrMalformed or ErrInvalid
+	Class  error  // ErrMalformed, ErrInvalid or ErrLimits
 	Reason string // a stable code, listed in Reasons
 	Msg    string
 	Where  Where
@@ -35,6 +38,7 @@ func (f *Failure) Unwrap() error { return f.Class }
 
 // Reasons lists every failure code with what it means.
 var Reasons = map[string]string{
+	"unreadable":       "the file cannot be opened or read",
 	"malformed":        "the bytes do not follow the format",
 	"limits":           "the certificate asks for more work than this checker allows",
 	"hash":             "a record or the header does not match its hash in the stored tree",

@@ -24,10 +24,11 @@ type sieve struct {
 	A, B    *big.Int
 	name    string
 	useMemo bool
+	work    *meter
 }
 
 func newSieve(h *sieveHeader) *sieve {
-	sv := &sieve{h: h, a: uint64(h.a), b: uint64(int64(h.b)), j: h.j, d: h.j / 2,
+	sv := &sieve{h: h, a: uint64(h.a), b: uint64(int64(h.b)), j: h.j, d: splitDepth(h.j),
 		A: big.NewInt(int64(h.a)), B: big.NewInt(int64(h.b)), name: mapName(h.a, h.b)}
 	p := big.NewInt(1)
 	for s := 0; s <= h.j+1; s++ {
@@ -77,6 +78,7 @@ type walk struct {
 	closed    []uint64 // closed[t]
 	stubs     []stubState
 	memo      *memo // nil: walk every class
+	maxStubs  int   // the top chunk: the stubs the preamble allows
 	fail      *Failure
 }
 
@@ -145,9 +147,17 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 	}
 	if w.end == sv.j {
 		w.survivors++
-	} else {
-		w.stubs = append(w.stubs, stubState{res: res, s: s, v: v})
+		return true
 	}
+	// The list of stubs is bounded by the record count the file declares,
+	// never by what the codes claim: a short top chunk may describe
+	// millions of open classes.
+	if len(w.stubs) == w.maxStubs {
+		w.fail = invalid("count", w.where(res, t, "chunks", strconv.Itoa(w.maxStubs+1), "more"),
+			"the top of the trie has more than the %d classes open at depth %d that the header's %d chunks allow", w.maxStubs, t, w.maxStubs+1)
+		return false
+	}
+	w.stubs = append(w.stubs, stubState{res: res, s: s, v: v})
 	return true
 }
 
@@ -210,11 +220,12 @@ func (sv *sieve) depths(w *walk) *Failure {
 
 // checkChunk verifies chunk record i; want is the stub it must start at
 // (nil for the top chunk).
-func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo) (*walk, *Failure) {
+func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo, maxStubs int) (*walk, *Failure) {
 	w, fl := sv.frame(i, rec, base)
 	if fl != nil {
 		return nil, fl
 	}
+	w.maxStubs = maxStubs
 	if fl := sv.depths(w); fl != nil {
 		return nil, fl
 	}

@@ -118,6 +118,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	if err != nil {
 		return nil, err
 	}
+	r.work = newMeter(ctx)
 	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
 	gen := encoder{r: r, end: g.d, tb: -1, tally: newTally(r.j)}
 	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
@@ -220,7 +221,8 @@ type unit struct {
 	fast     bool
 	from, to uint64
 	acc      acc
-	jobs     []job // scratch for the lane search
+	jobs     []jumpJob // numbers waiting for the two-lane search
+	offs     []uint64  // and their offsets
 }
 
 // block computes the summary of block i.
@@ -240,7 +242,8 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 
 	units := make([]*unit, 0, len(g.stubs)+2)
 	newUnit := func(a, b uint64) *unit {
-		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k), jobs: make([]job, 0, 1024)}
+		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k),
+			jobs: make([]jumpJob, 0, 512), offs: make([]uint64, 0, 512)}
 		if fast {
 			u.x0u = x0.Uint64()
 		}
@@ -273,6 +276,9 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 		return nil, err
 	}
 	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
+	if err := g.r.work.failed(); err != nil {
 		return nil, err
 	}
 	return merge(uint32(i), x0, units)
@@ -313,18 +319,19 @@ func (u *unit) closed(res uint64, t int) {
 func (u *unit) survivor(res uint64, s int, tk exact) {
 	n, off := members(res, u.g.k, u.from, u.to)
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
-	if u.fast && tk.b == nil && r.powFits[s] && r.a == 3 && r.m.B == 1 {
+	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil {
 		for ; n > 0; n, off = n-1, off+1<<k {
 			num := u.x0u + off
 			x, ok := r.powU[s].mul64(num >> k)
 			if ok {
 				x, ok = x.add(tk.u)
 			}
-			if !ok || x.hi >= laneLimit {
-				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jump(num, s, tk), uint32(k), limit), cSearch)
+			if !ok || x.hi >= jumpLimit {
+				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), limit), cSearch)
 				continue
 			}
-			u.jobs = append(u.jobs, job{n: num, hi: x.hi, lo: x.lo, off: off})
+			u.jobs = append(u.jobs, jumpJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k)})
+			u.offs = append(u.offs, off)
 			if len(u.jobs) == cap(u.jobs) {
 				u.flush()
 			}
@@ -350,24 +357,23 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 	}
 }
 
-// flush searches the jobs gathered so far, four lanes at a time.
+// flush searches the numbers gathered so far, two lanes at a time; the
+// few the lanes hand back (cap or value limit) take the general path.
 func (u *unit) flush() {
-	r, k, limit := u.g.r, uint32(u.g.k), u.g.p.Cap
-	search3Lanes(u.jobs, k, limit, func(j *job, sigma uint32) {
-		if sigma > 0 {
-			u.acc.note(j.off, outcome{fate: cert.Descends, sigma: sigma}, cSearch)
-			return
+	r, limit := u.g.r, u.g.p.Cap
+	searchJump2(r.jump, u.jobs, limit)
+	for i := range u.jobs {
+		j := &u.jobs[i]
+		o := outcome{fate: cert.Descends, sigma: j.sigma}
+		if j.sigma == 0 {
+			o = r.searchFrom(j.n, u128{j.hi, j.lo}, j.i, limit)
 		}
-		u.acc.note(j.off, r.searchFrom(j.n, u128{j.hi, j.lo}, k, limit), cSearch)
-	})
-	u.jobs = u.jobs[:0]
+		u.acc.note(u.offs[i], o, cSearch)
+	}
+	u.jobs, u.offs = u.jobs[:0], u.offs[:0]
 }
 
-// jump returns T^k(num) = a^s*(num >> k) + T^k(res), exactly.
-func (u *unit) jump(num uint64, s int, tk exact) *big.Int {
-	return u.jumpBig(new(big.Int).SetUint64(num), s, tk)
-}
-
+// jumpBig returns T^k(num) = a^s*(num >> k) + T^k(res), exactly.
 func (u *unit) jumpBig(num *big.Int, s int, tk exact) *big.Int {
 	x := new(big.Int).Rsh(num, uint(u.g.k))
 	return x.Mul(x, u.g.r.powBig(s)).Add(x, tk.big())

@@ -27,9 +27,11 @@ type rules struct {
 	powU    []u128
 	powFits []bool
 	limHi   uint64 // while x>>64 < limHi, a step of the search fits 128 bits
+	jump    []jumpEntry
 	bigA    *big.Int
 	bigB    *big.Int
-	limit   int // cap on the exception search, in numbers tested
+	limit   int    // cap on the exception search, in numbers tested
+	work    *meter // big-number work and cancellation; nil: unmetered
 }
 
 // maxExceptionSearch caps the numbers the exception search tests: one walk
@@ -58,6 +60,7 @@ func newRules(m cert.Map, k, j int) (*rules, error) {
 		r.powU, r.powFits = append(r.powU, u), append(r.powFits, ok)
 		p.Mul(p, r.bigA)
 	}
+	r.jump = r.jumpTable()
 	return r, nil
 }
 
@@ -136,6 +139,9 @@ func (r *rules) exceptions(cap uint32) ([]cert.Exception, error) {
 	var out []cert.Exception
 	x := new(big.Int)
 	for n := int64(1); n <= bound.Int64(); n++ {
+		if n&4095 == 0 && r.work != nil && r.work.ctx.Err() != nil {
+			return nil, r.work.ctx.Err()
+		}
 		x.SetInt64(n)
 		s := 0
 		for t := 1; t <= r.j; t++ {
@@ -145,12 +151,15 @@ func (r *rules) exceptions(cap uint32) ([]cert.Exception, error) {
 			if r.closes(t, s) {
 				if x.Cmp(big.NewInt(n)) >= 0 { // T^t(n) >= n: at or below the threshold
 					out = append(out, r.fate(big.NewInt(n), cap))
+					if err := r.work.failed(); err != nil {
+						return nil, err
+					}
 				}
 				break
 			}
 		}
 	}
-	return out, nil
+	return out, r.work.failed()
 }
 
 // step replaces x by T(x) and reports whether the step was odd.
@@ -168,11 +177,16 @@ func (r *rules) step(x *big.Int) bool {
 // x_0..x_cap exactly when x_cap equals an earlier x_i, and then x_cap lies on
 // the cycle, whose smallest member is found by going round it once. Three
 // passes of at most cap steps, constant memory.
+//
+// Each step is charged to the work meter; once it fails, fate returns an
+// undecided placeholder and the caller reports the meter's error.
 func (r *rules) fate(n *big.Int, cap uint32) cert.Exception {
-	e := cert.Exception{N: n}
+	e := cert.Exception{N: n, Fate: cert.Undecided}
 	x := new(big.Int).Set(n)
 	for i := uint32(1); i <= cap; i++ {
-		r.step(x)
+		if r.step(x); !r.work.charge(x) {
+			return e
+		}
 		if x.Cmp(n) < 0 {
 			e.Fate, e.Steps = cert.Descends, i
 			return e
@@ -184,6 +198,9 @@ func (r *rules) fate(n *big.Int, cap uint32) cert.Exception {
 		if x.Cmp(last) == 0 {
 			m := new(big.Int).Set(last)
 			for r.step(x); x.Cmp(last) != 0; r.step(x) {
+				if !r.work.charge(x) {
+					return e
+				}
 				if x.Cmp(m) < 0 {
 					m.Set(x)
 				}
@@ -191,8 +208,9 @@ func (r *rules) fate(n *big.Int, cap uint32) cert.Exception {
 			e.Fate, e.CycleMin = cert.Cycle, m
 			return e
 		}
-		r.step(x)
+		if r.step(x); !r.work.charge(x) {
+			return e
+		}
 	}
-	e.Fate = cert.Undecided
 	return e
 }

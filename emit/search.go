@@ -174,8 +174,10 @@ func (r *rules) iterate(n *big.Int, cap uint32) outcome {
 // made from the parity selects the second part, so the loop has no branch
 // on the parity, which is as unpredictable as a coin.
 func (r *rules) searchFrom(n uint64, x u128, i uint32, cap uint32) outcome {
-	if r.a == 3 && r.m.B == 1 {
-		return r.search3(n, x, i, cap)
+	if r.jump != nil && x.hi < jumpLimit {
+		if sigma := searchJump(r.jump, n, x.hi, x.lo, i, cap); sigma > 0 {
+			return outcome{fate: cert.Descends, sigma: sigma}
+		}
 	}
 	hi, lo := x.hi, x.lo
 	half := (r.a - 1) / 2
@@ -214,28 +216,6 @@ func (r *rules) searchFrom(n uint64, x u128, i uint32, cap uint32) outcome {
 	return r.iterate(new(big.Int).SetUint64(n), cap)
 }
 
-// search3 is searchFrom for 3n+1: (3x + 1)/2 = (x >> 1) + x + 1.
-func (r *rules) search3(n uint64, x u128, i uint32, cap uint32) outcome {
-	hi, lo, lim := x.hi, x.lo, r.limHi
-	for ; i < cap; i++ {
-		if hi == 0 && lo < n {
-			return outcome{fate: cert.Descends, sigma: i}
-		}
-		if hi >= lim {
-			return r.searchBig(new(big.Int).SetUint64(n), u128{hi, lo}.big(), i, cap)
-		}
-		odd := -(lo & 1)
-		tl, c := bits.Add64(lo, 1, 0)
-		th := hi + c
-		lo, c = bits.Add64(lo>>1|hi<<63, tl&odd, 0)
-		hi = hi>>1 + th&odd + c
-	}
-	if hi == 0 && lo < n {
-		return outcome{fate: cert.Descends, sigma: i}
-	}
-	return r.iterate(new(big.Int).SetUint64(n), cap)
-}
-
 // searchBig is searchFrom with math/big, for n or values beyond 128 bits.
 func (r *rules) searchBig(n, x *big.Int, i uint32, cap uint32) outcome {
 	x = new(big.Int).Set(x)
@@ -243,7 +223,9 @@ func (r *rules) searchBig(n, x *big.Int, i uint32, cap uint32) outcome {
 		if x.Cmp(n) < 0 {
 			return outcome{fate: cert.Descends, sigma: i}
 		}
-		r.step(x)
+		if r.step(x); !r.work.charge(x) {
+			return outcome{fate: cert.Undecided}
+		}
 	}
 	return r.iterate(n, cap)
 }

@@ -61,6 +61,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err != nil {
 		return nil, err
 	}
+	r.work = newMeter(ctx)
 	if p.Cap == 0 {
 		p.Cap = DefaultCap
 	}
@@ -121,6 +122,9 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 			for st := range jobs {
 				e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
 				e.node(d, st.s, st.v)
+				if e.w.Len() >= 1<<32 || e.w.Len()/8 > cert.MaxRecordBytes-64 {
+					return fmt.Errorf("emit: the chunk below class %d mod 2^%d has %d code bits, more than a record holds", st.res, d, e.w.Len())
+				}
 				rec := cert.Chunk{Residue: st.res, From: d, To: r.j, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
 				st.out <- chunkOut{rec: rec, leaf: cert.LeafHash(rec), tally: e.tally}
 			}
@@ -172,10 +176,19 @@ func trySend[T any](ctx context.Context, ch chan<- T, v T) bool {
 	}
 }
 
+// MaxSurvivorClasses bounds the survivor classes of a sieve this program
+// writes: 2^40 classes make a certificate of about 200 GB and a run of days
+// on two cores. The format allows more; the work does not.
+const MaxSurvivorClasses = 1 << 40
+
 // header states the claim: counts from the (depth, odd steps) table and the
 // exceptions from the exception search.
 func (r *rules) header(cap uint32) (*cert.SieveHeader, error) {
 	closedAt, openAt := r.counts()
+	if n := openAt[r.j]; n > MaxSurvivorClasses {
+		return nil, fmt.Errorf("%v with j = %d leaves %d survivor classes mod 2^%d, more than the %d (2^40) this program writes; use a smaller j",
+			r.m, r.j, n, r.j, uint64(MaxSurvivorClasses))
+	}
 	exc, err := r.exceptions(cap)
 	if err != nil {
 		return nil, err

@@ -16,12 +16,15 @@ func (c *cli) check(args []string) int {
 	sieve := fs.String("sieve", "", "for a range certificate: the sieve certificate `FILE` it rests on")
 	sampleN := fs.Int("sample", 0, "for a range certificate: re-derive only `N` blocks, chosen from the root and -seed")
 	seed := fs.String("seed", "", "the reader's own `seed` for choosing the sampled blocks")
-	if code, stop := parse(fs, args); stop {
+	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
 	if fs.NArg() == 0 {
 		c.errorf("check: no certificate given")
 		fs.Usage()
+		return exitUsage
+	}
+	if !c.workersOK("check", *workers) {
 		return exitUsage
 	}
 	if *sampleN < 0 {
@@ -87,12 +90,17 @@ func (c *cli) printReport(rep *check.Report) {
 		return
 	}
 	verdict := "INVALID"
-	if errors.Is(rep.Err(), check.ErrMalformed) {
+	switch err := rep.Err(); {
+	case errors.Is(err, check.ErrLimits):
+		verdict = "BEYOND THIS CHECKER'S LIMITS, neither valid nor invalid"
+	case errors.Is(err, check.ErrMalformed):
 		verdict = "MALFORMED"
 	}
 	fmt.Fprintf(c.stdout, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
+	if rep.Reason == "unreadable" {
+		c.errorf("%s: %v", rep.File, rep.Err())
+	}
 	if w := rep.Where; w != nil && (w.Expected != "" || w.Found != "") {
 		fmt.Fprintf(c.stdout, "  claim      %s\n  expected   %s\n  found      %s\n", w.Claim, w.Expected, w.Found)
 	}
-	c.errorf("%s: %s", rep.File, verdict)
 }

@@ -108,8 +108,9 @@ func plural(n int, one, many string) string {
 
 // summary is the claim in one line.
 func (f facts) summary() string {
-	s := fmt.Sprintf("%s: %d of the 2^%d residues survive %d steps; the rest lie in %d closing classes; %s",
-		f.Map, f.Survivors, f.K, f.J, f.closedClasses(), plural(len(f.Exceptions), "exception", "exceptions"))
+	s := fmt.Sprintf("%s: %d of the 2^%d residues survive %s; the rest lie in %s; %s",
+		f.Map, f.Survivors, f.K, plural(f.J, "step", "steps"), plural(int(f.closedClasses()), "closing class", "closing classes"),
+		plural(len(f.Exceptions), "exception", "exceptions"))
 	if len(f.Exceptions) > 0 && len(f.Exceptions) <= 3 {
 		s += " (" + f.exceptionList() + ")"
 	}
@@ -118,25 +119,30 @@ func (f facts) summary() string {
 
 // sentence is the claim fit to quote.
 func (f facts) sentence() string {
-	s := fmt.Sprintf("For %s, every residue mod 2^%d lies either in one of %d classes r mod 2^t (t <= %d) "+
+	a, _, _ := strings.Cut(f.Map, "n")
+	s := fmt.Sprintf("Under %s, every residue mod 2^%d lies either in one of %d classes r mod 2^t (t <= %d) "+
 		"that close at step t, or among the %d survivors. A class closes at step t when its first t steps "+
-		"have s odd ones with a^s < 2^t (here a = the multiplier of the map); then T^t(n) = (a^s*n + c)/2^t "+
-		"for every member n, so T^t(n) < n for every member above c/(2^t - a^s).",
-		f.mapText(), f.K, f.closedClasses(), f.J, f.Survivors)
+		"have s odd ones with %s^s < 2^t; then T^t(n) = (%s^s*n + c)/2^t for every member n, so T^t(n) < n "+
+		"for every member above c/(2^t - %s^s).",
+		f.mapText(), f.K, f.closedClasses(), f.J, f.Survivors, a, a, a)
 	switch len(f.Exceptions) {
 	case 0:
 		s += " No positive member of a closing class lies at or below its threshold."
+	case 1:
+		s += fmt.Sprintf(" One member lies at or below its threshold, decided by direct iteration within %d steps: %s.",
+			f.Cap, f.exceptionList())
 	default:
-		s += fmt.Sprintf(" The members at or below their threshold are %s, decided by direct iteration within %d steps: %s.",
-			plural(len(f.Exceptions), "number", "numbers"), f.Cap, f.exceptionList())
+		s += fmt.Sprintf(" The members at or below their threshold are these %d, decided by direct iteration within %d steps: %s.",
+			len(f.Exceptions), f.Cap, f.exceptionList())
 	}
 	return s
 }
 
 // caveat says what the claim does not prove.
 func (f facts) caveat() string {
-	return fmt.Sprintf("This is a bounded claim about the first %d steps. It does not show that any number reaches 1 "+
-		"or a cycle, it says nothing about the %d survivors beyond step %d, and it is not a proof of the 3n+1 "+
-		"conjecture or of any statement about all integers. A claim about every n below a bound needs, "+
-		"besides this sieve, a search of the survivor classes.", f.J, f.Survivors, f.J)
+	return fmt.Sprintf("This is a bounded claim about the first %d steps. Beyond the fates of the exceptions listed, "+
+		"it does not show that any number reaches 1 or a cycle: a member that drops below itself is only shown "+
+		"smaller after t steps. It says nothing about the %d survivors beyond step %d, and it is not a proof of "+
+		"the 3n+1 conjecture or of any statement about all integers. A claim about every n below a bound needs, "+
+		"besides this sieve, a search of the survivor classes (a range certificate).", f.J, f.Survivors, f.J)
 }

@@ -24,11 +24,14 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	capFlag := fs.Uint("cap", emit.DefaultCap, "step `cap` for deciding the fate of each exception")
 	workers := fs.Int("workers", 0, "parallel chunk encoders (default: all cores)")
 	out := fs.String("o", "", "write the certificate to `FILE`")
-	if code, stop := parse(fs, args[1:]); stop {
+	if code, stop := c.parse(fs, args[1:]); stop {
 		return code
 	}
 	if fs.NArg() > 0 {
 		c.errorf("emit sieve: unexpected argument %q", fs.Arg(0))
+		return exitUsage
+	}
+	if !c.workersOK("emit sieve", *workers) {
 		return exitUsage
 	}
 	if *out == "" {

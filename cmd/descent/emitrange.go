@@ -21,7 +21,7 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 	capFlag := fs.Uint("cap", emit.DefaultRangeCap, "step `cap`: a number not decided within it is reported undecided")
 	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
 	out := fs.String("o", "", "write the certificate to `FILE`")
-	if code, stop := parse(fs, args); stop {
+	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
 	switch {
@@ -30,6 +30,8 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 		return exitUsage
 	case *sievePath == "" || *toFlag == "" || *out == "":
 		c.errorf("emit range: give -sieve FILE, -to HI and -o FILE")
+		return exitUsage
+	case !c.workersOK("emit range", *workers):
 		return exitUsage
 	case *capFlag > cert.MaxCap:
 		c.errorf("emit range: -cap %d: at most %d", *capFlag, cert.MaxCap)

@@ -8,6 +8,7 @@ import (
 	"math/big"
 	"os"
 	"path/filepath"
+	"runtime"
 	"strconv"
 	"testing"
 
@@ -418,4 +419,78 @@ func TestRangeForgeries(t *testing.T) {
 		require.Equal(t, exitInvalid, code, "totals are checked against every block even in an audit")
 		require.Equal(t, "count", rep["reason"])
 	})
+}
+
+// topCodes writes the true top-chunk codes of map m down to depth d, by
+// the rules of SPEC.md (parities modulo 2^64), and counts the stubs.
+func topCodes(m cert.Map, d int) (cert.Chunk, int) {
+	a, b := uint64(m.A), uint64(int64(m.B))
+	pow := []uint64{1}
+	bitl := []int{1}
+	p := big.NewInt(1)
+	for s := 1; s <= d+1; s++ {
+		p.Mul(p, big.NewInt(int64(m.A)))
+		pow = append(pow, p.Uint64())
+		bitl = append(bitl, p.BitLen())
+	}
+	var w cert.BitWriter
+	stubs := 0
+	var walk func(t, s int, v uint64)
+	walk = func(t, s int, v uint64) {
+		if t == d {
+			stubs++
+			return
+		}
+		even := v & 1
+		if bitl[s] <= t+1 {
+			w.WriteBits(2|even, 2)
+			vo := v + pow[s]*(1-even)
+			walk(t+1, s+1, (a*vo+b)>>1)
+			return
+		}
+		w.WriteBits(0, 1)
+		for c := uint64(0); c < 2; c++ {
+			vc := v + c*pow[s]
+			if vc&1 == 0 {
+				walk(t+1, s, vc>>1)
+			} else {
+				walk(t+1, s+1, (a*vc+b)>>1)
+			}
+		}
+	}
+	walk(0, 0, 0)
+	return cert.Chunk{From: 0, To: d, NBits: w.Len(), Payload: w.Bytes()}, stubs
+}
+
+func TestShortTopChunkWithManyStubsAllocatesLittle(t *testing.T) {
+	// True codes for 7n+1 down to depth 20 describe 324884 open
+	// classes in 120 KB; the file declares one chunk below the top. The
+	// checker must stop at the second stub, not list them all.
+	m := cert.Map{A: 7, B: 1}
+	top, stubs := topCodes(m, 20)
+	require.Greater(t, stubs, 300000)
+	h := &cert.SieveHeader{Map: m, K: 40, J: 40, Cap: 100, Chunks: 2, Survivors: 1, ClosedAt: make([]uint64, 40)}
+	c := &cut{h: h, chunks: []cert.Chunk{top, {Residue: 0, From: 20, To: 40}}}
+	b := c.seal(t)
+	var before, after runtime.MemStats
+	runtime.GC()
+	runtime.ReadMemStats(&before)
+	code, rep := checkJSON(t, b)
+	runtime.ReadMemStats(&after)
+	require.Equal(t, exitInvalid, code)
+	require.Equal(t, "count", rep["reason"], "%v", rep["error"])
+	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(16<<20), "allocated %d bytes for a %d-byte file", after.TotalAlloc-before.TotalAlloc, len(b))
+}
+
+func TestHugeCapIsBeyondLimitsNotEndless(t *testing.T) {
+	// 5n+11 has exceptions whose orbits grow; a forged cap of 2^24 would
+	// make deciding them take hours of big-number arithmetic. The checker
+	// stops at its work bound and says so (exit 2), neither valid nor
+	// invalid.
+	good := emitBytes(t, "-k", "12", "-map", "5n+11", "-cap", "1000")
+	c := open(t, good)
+	c.h.Cap = cert.MaxCap
+	code, rep := checkJSON(t, c.seal(t))
+	require.Equal(t, exitUsage, code, "%v", rep)
+	require.Equal(t, "limits", rep["reason"])
 }

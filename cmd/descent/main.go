@@ -1,8 +1,9 @@
 // Command descent emits, checks and shows certificates of computational
 // verifications of the 3n+1 problem and its relatives.
 //
-//	descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] -o FILE
-//	descent check [-json] [-root HEX] FILE...
+//	descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-workers N] -o FILE
+//	descent emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-workers N] -o FILE
+//	descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-workers N] FILE...
 //	descent show [-json] FILE
 //
 // Exit status: 0 success (every certificate valid), 1 a certificate is
@@ -27,11 +28,13 @@ const (
 )
 
 const usage = `usage:
-  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] -o FILE
-  descent check [-json] [-root HEX] FILE...
+  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-workers N] -o FILE
+  descent emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-workers N] -o FILE
+  descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-workers N] FILE...
   descent show [-json] FILE
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
+emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
 
@@ -45,10 +48,8 @@ type cli struct {
 }
 
 func main() {
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	defer stop()
 	c := &cli{stdout: os.Stdout, stderr: os.Stderr, stderrTTY: isTerminal(os.Stderr)}
-	os.Exit(c.run(ctx, os.Args[1:]))
+	os.Exit(c.run(context.Background(), os.Args[1:]))
 }
 
 func (c *cli) run(ctx context.Context, args []string) int {
@@ -58,6 +59,10 @@ func (c *cli) run(ctx context.Context, args []string) int {
 	}
 	switch args[0] {
 	case "emit":
+		// An interrupted emit removes its partial output (and keeps a
+		// range's journal); check and show write nothing and stop at once.
+		ctx, stop := signal.NotifyContext(ctx, os.Interrupt, syscall.SIGTERM)
+		defer stop()
 		return c.emit(ctx, args[1:])
 	case "check":
 		return c.check(args[1:])
@@ -80,21 +85,37 @@ func (c *cli) errorf(format string, args ...any) {
 // with the subcommand's usage line.
 func (c *cli) flags(name, synopsis string) *flag.FlagSet {
 	fs := flag.NewFlagSet(name, flag.ContinueOnError)
-	fs.SetOutput(c.stderr)
+	fs.SetOutput(io.Discard) // parse reports errors itself, prefixed
 	fs.Usage = func() {
 		fmt.Fprintf(c.stderr, "usage: descent %s\n", synopsis)
+		fs.SetOutput(c.stderr)
 		fs.PrintDefaults()
+		fs.SetOutput(io.Discard)
 	}
 	return fs
 }
 
 // parse parses args and returns an exit status if the command should stop.
-func parse(fs *flag.FlagSet, args []string) (int, bool) {
+func (c *cli) parse(fs *flag.FlagSet, args []string) (int, bool) {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
+			fs.Usage()
 			return exitOK, true
 		}
+		c.errorf("%s: %v", fs.Name(), err)
+		fs.Usage()
 		return exitUsage, true
 	}
 	return 0, false
+}
+
+// maxWorkers bounds -workers: more goroutines than this only cost memory.
+const maxWorkers = 256
+
+func (c *cli) workersOK(name string, w int) bool {
+	if w < 0 || w > maxWorkers {
+		c.errorf("%s: -workers %d: want 0 (all cores) to %d", name, w, maxWorkers)
+		return false
+	}
+	return true
 }
