@@ -181,6 +181,27 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 	return outcome{fate: e.fate, sigma: e.steps, cycleMin: e.cycleMin}
 }
 
+// drop steps x = T^i(n) on in 128 bits until it is below n, for numbers n
+// below 2^64. It gives up (false) at the cap or when a step could leave 128
+// bits, and the caller takes the general path from the start.
+func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
+	for ; i <= s.h.cap; i++ {
+		if hi == 0 && lo < n {
+			return i, true
+		}
+		if lo&1 == 0 {
+			hi, lo = hi>>1, lo>>1|hi<<63
+			continue
+		}
+		if hi >= s.limHi {
+			return 0, false
+		}
+		x := s.oddStep(wide{hi: hi, lo: lo})
+		hi, lo = x.hi, x.lo
+	}
+	return 0, false
+}
+
 // tallies accumulates what one part of a block finds; offsets are from the
 // block's first number x0.
 type tallies struct {
@@ -249,6 +270,8 @@ func (t *tallies) note(off uint64, r outcome, rule int) {
 type part struct {
 	s        *searcher
 	x0       *big.Int
+	x0u      uint64 // x0, when the whole block lies below 2^64 (fast)
+	fast     bool
 	from, to uint64
 	t        *tallies
 }
@@ -304,6 +327,28 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 func (p *part) survivor(res uint64, odd int, tk wide) {
 	s := p.s
 	n, off := p.inClass(res, s.k)
+	if p.fast && tk.big == nil && s.pow[odd].BitLen() <= 64 {
+		m := s.pow[odd].Uint64()
+		for ; n > 0; n, off = n-1, off+1<<s.k {
+			num := p.x0u + off
+			// x = m*(num >> k) + tk, in 128 bits; a carry out means the
+			// general path.
+			h, l := bits.Mul64(m, num>>s.k)
+			l, c := bits.Add64(l, tk.lo, 0)
+			h, c2 := bits.Add64(h, tk.hi, c)
+			if c2 == 0 {
+				if sigma, ok := s.drop(num, h, l, uint32(s.k)); ok {
+					p.t.note(off, outcome{fate: 1, sigma: sigma}, 1)
+					continue
+				}
+			}
+			nb := new(big.Int).SetUint64(num)
+			x := new(big.Int).Rsh(nb, uint(s.k))
+			x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
+			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), 1)
+		}
+		return
+	}
 	for ; n > 0; n, off = n-1, off+1<<s.k {
 		num := new(big.Int).Add(p.x0, new(big.Int).SetUint64(off))
 		x := new(big.Int).Rsh(num, uint(s.k))
@@ -344,8 +389,13 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	top.classes(0, 0, wide{}, 0, s.d)
 	var wg sync.WaitGroup
 	sem := make(chan struct{}, max(workers, 1))
+	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
+	fast := end.BitLen() <= 64
 	for _, res := range s.stubs {
-		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies()}
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), fast: fast}
+		if fast {
+			p.x0u = x0.Uint64()
+		}
 		parts = append(parts, p)
 		wg.Add(1)
 		sem <- struct{}{}

@@ -456,7 +456,15 @@ func (a *acc) point(off uint64, sigma uint32) {
 	}
 	// The records are the prefix maxima: (off, sigma) is one unless a
 	// point before it has a stopping time at least as large.
-	i := sort.Search(len(a.stairs), func(i int) bool { return a.stairs[i].off >= off })
+	lo, hi := 0, len(a.stairs) // the first point at or after off
+	for lo < hi {
+		if m := (lo + hi) / 2; a.stairs[m].off < off {
+			lo = m + 1
+		} else {
+			hi = m
+		}
+	}
+	i := lo
 	if i > 0 && a.stairs[i-1].sigma >= sigma {
 		return
 	}

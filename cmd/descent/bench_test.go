@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math/big"
+	"math/bits"
 	"os"
 	"path/filepath"
 	"testing"
@@ -129,5 +130,62 @@ func BenchmarkCheck(b *testing.B) {
 			}
 			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/trieNodes(res.Header), "ns/node")
 		})
+	}
+}
+
+// BenchmarkPlainLoop is the baseline for range searches: iterate every n
+// from 2^60 until it drops below itself, no sieve, exact in 128 bits.
+func BenchmarkPlainLoop(b *testing.B) {
+	n := uint64(1) << 60
+	var steps uint64
+	for range b.N {
+		hi, lo := uint64(0), n
+		for hi != 0 || lo >= n {
+			if lo&1 == 0 {
+				lo = lo>>1 | hi<<63
+				hi >>= 1
+			} else { // (3x+1)/2 = x + (x+1)/2
+				h1, l1 := hi>>1, lo>>1|hi<<63
+				var c uint64
+				lo, c = bits.Add64(lo, l1+1, 0)
+				hi += h1 + c
+			}
+			steps++
+		}
+		n++
+	}
+	b.ReportMetric(float64(b.N)/b.Elapsed().Seconds(), "numbers/s")
+	b.ReportMetric(float64(steps)/float64(b.N), "steps/number")
+}
+
+// BenchmarkRange covers 2^(k+2) numbers from 2^60 with a k = 24 or 32
+// sieve (blocks of 2^(k+4)), on one core and on all of them.
+//
+//	go test ./cmd/descent -run '^$' -bench Range -benchtime 1x -count 5
+func BenchmarkRange(b *testing.B) {
+	for _, k := range []int{24, 32} {
+		dir := b.TempDir()
+		sieve := filepath.Join(dir, "sieve.dcert")
+		res := emitFile(b, k, sieve)
+		lo := new(big.Int).Lsh(big.NewInt(1), 60)
+		span := new(big.Int).Lsh(big.NewInt(1), uint(k+2))
+		for _, w := range []int{1, 2} {
+			b.Run(fmt.Sprintf("k=%d/workers=%d", k, w), func(b *testing.B) {
+				p := emit.RangeParams{Sieve: res.Header, SieveRoot: res.Root, Lo: lo, Hi: new(big.Int).Add(lo, span), E: k + 4}
+				for range b.N {
+					f, err := os.Create(filepath.Join(dir, "range.dcert"))
+					if err != nil {
+						b.Fatal(err)
+					}
+					if _, err := emit.Range(context.Background(), f, p, emit.RangeOptions{Workers: w}); err != nil {
+						b.Fatal(err)
+					}
+					f.Close()
+				}
+				perCore := float64(span.Int64()) * float64(b.N) / b.Elapsed().Seconds() / float64(w)
+				b.ReportMetric(perCore, "numbers/core-s")
+				b.ReportMetric(perCore/(1<<32), "2^32/core-s")
+			})
+		}
 	}
 }
