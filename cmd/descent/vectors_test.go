@@ -1,0 +1,498 @@
+package main
+
+import (
+	"bytes"
+	"encoding/base64"
+	"encoding/binary"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"descent/cert"
+	"descent/check"
+)
+
+// Hostile test vectors (testdata/vectors): each file is one certificate
+// with the outcome every entry point must give it. The generator below
+// derives them from a few good certificates, and TestVectors runs each
+// through every entry point. Regenerate with
+//
+//	go test ./cmd/descent -run TestVectors -update
+//
+// A vector file is text:
+//
+//	descent test vector
+//	description: <one line>
+//	sieve: <the vector a range vector rests on, or empty>
+//	decoder: ok | malformed
+//	check: valid | malformed | hash | claim | limits
+//	show: ok | malformed | hash
+//	flip: <base vector> <byte> <bit>   (only for single-bit flips)
+//
+//	<the certificate, base64; empty for a flip, which is its base with
+//	that one bit flipped>
+//
+// The expected outcomes come from the generator's classifier, written on
+// package cert, so that the checker is tested against code other than its
+// own: "malformed" when the bytes break the format, "hash" when a stored
+// hash does not match what it covers, "claim" for a certificate whose
+// hashes all match but whose claims are false.
+
+var update = flag.Bool("update", false, "rewrite testdata/vectors from the generator")
+
+const vectorDir = "../../testdata/vectors"
+
+type vector struct {
+	name, description, sieve string
+	decoder, check, show     string
+	flip                     string // "base byte bit", for a single-bit flip
+	data                     []byte
+}
+
+func (v vector) encode() []byte {
+	var b bytes.Buffer
+	fmt.Fprintf(&b, "descent test vector\ndescription: %s\nsieve: %s\ndecoder: %s\ncheck: %s\nshow: %s\n",
+		v.description, v.sieve, v.decoder, v.check, v.show)
+	if v.flip != "" {
+		fmt.Fprintf(&b, "flip: %s\n\n", v.flip)
+		return b.Bytes()
+	}
+	b.WriteString("\n")
+	enc := base64.StdEncoding.EncodeToString(v.data)
+	for len(enc) > 76 {
+		b.WriteString(enc[:76] + "\n")
+		enc = enc[76:]
+	}
+	b.WriteString(enc + "\n")
+	return b.Bytes()
+}
+
+func parseVector(name string, raw []byte) (vector, error) {
+	head, body, ok := strings.Cut(string(raw), "\n\n")
+	if !ok || !strings.HasPrefix(head, "descent test vector\n") {
+		return vector{}, fmt.Errorf("%s: not a test vector", name)
+	}
+	v := vector{name: name}
+	for _, line := range strings.Split(head, "\n")[1:] {
+		key, val, _ := strings.Cut(line, ": ")
+		switch key {
+		case "description":
+			v.description = val
+		case "sieve":
+			v.sieve = val
+		case "decoder":
+			v.decoder = val
+		case "check":
+			v.check = val
+		case "show":
+			v.show = val
+		case "flip":
+			v.flip = val
+		}
+	}
+	data, err := base64.StdEncoding.DecodeString(strings.ReplaceAll(body, "\n", ""))
+	v.data = data
+	return v, err
+}
+
+// --- the classifier, on package cert -----------------------------------
+
+// classify says what a certificate is, by the order in which a checker
+// looks (SPEC.md, section 3): the layout and header first, then the stored
+// hashes, then each record's hash before its framing. It returns the
+// decoder's outcome and the outcome of the hash-level checks: malformed,
+// hash, or ok (the claims are then the checker's to judge).
+func classify(b []byte) (decoder, hashes string) {
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	if err != nil {
+		return "malformed", "malformed"
+	}
+	var parse func(rec []byte, i int, base int64) error
+	switch rd.Kind {
+	case cert.KindSieve:
+		h, err := cert.ParseSieveHeader(rd.Header)
+		if err != nil {
+			return "malformed", "malformed"
+		}
+		d := cert.SplitDepth(h.J)
+		parse = func(rec []byte, i int, base int64) error {
+			c, err := cert.ParseChunk(rec, base)
+			if err != nil {
+				return err
+			}
+			from, to := d, h.J
+			if i == 0 {
+				from, to = 0, d
+			}
+			if c.From != from || c.To != to {
+				return errDepths
+			}
+			return c.Walk(func(cert.Class) error { return nil })
+		}
+	case cert.KindRange:
+		if _, err := cert.ParseRangeHeader(rd.Header); err != nil {
+			return "malformed", "malformed"
+		}
+		parse = func(rec []byte, i int, base int64) error {
+			blk, err := cert.ParseBlock(rec, base)
+			if err == nil && blk.Index != uint32(i) {
+				err = cert.ErrMalformed
+			}
+			return err
+		}
+	}
+	hashes = "ok"
+	if rd.CheckTree() != nil {
+		hashes = "hash"
+	}
+	decoder = "ok"
+	for i := 0; ; i++ {
+		rec, err := rd.Next()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			if hashes == "ok" {
+				hashes = "malformed"
+			}
+			return "malformed", hashes
+		}
+		if hashes == "ok" && cert.LeafHash(rec) != rd.Levels[0][i+1] {
+			hashes = "hash"
+		}
+		if err := parse(rec, i, rd.Offs[i]); err != nil {
+			decoder = "malformed"
+			if hashes == "ok" {
+				if errors.Is(err, errDepths) {
+					hashes = "claim" // a hashed chunk whose depths contradict the header
+				} else {
+					hashes = "malformed"
+				}
+			}
+		}
+	}
+	return decoder, hashes
+}
+
+var errDepths = errors.New("chunk depths differ from the header's")
+
+// showOutcome is what show can see: the layout, the header and the stored
+// tree, and for a range the block records and their hashes.
+func showOutcome(b []byte) string {
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	if err != nil {
+		return "malformed"
+	}
+	if rd.Kind == cert.KindSieve {
+		if _, err := cert.ParseSieveHeader(rd.Header); err != nil {
+			return "malformed"
+		}
+		if rd.CheckTree() != nil {
+			return "hash"
+		}
+		return "ok"
+	}
+	if _, err := cert.ParseRangeHeader(rd.Header); err != nil {
+		return "malformed"
+	}
+	if rd.CheckTree() != nil {
+		return "hash"
+	}
+	for i := 0; ; i++ {
+		rec, err := rd.Next()
+		if err == io.EOF {
+			return "ok"
+		}
+		if err != nil {
+			return "malformed"
+		}
+		if cert.LeafHash(rec) != rd.Levels[0][i+1] {
+			return "hash"
+		}
+		if _, err := cert.ParseBlock(rec, 0); err != nil {
+			return "malformed"
+		}
+	}
+}
+
+// --- the generator -------------------------------------------------------
+
+type good struct {
+	name, sieve string
+	flips       bool // every single-bit flip becomes a vector
+	data        []byte
+}
+
+func emitGood(t *testing.T, dir string) []good {
+	mk := func(name string, args ...string) []byte {
+		path := filepath.Join(dir, name)
+		code, _, stderr := runCLI(append(args, "-o", path)...)
+		require.Equal(t, exitOK, code, stderr)
+		b, err := os.ReadFile(path)
+		require.NoError(t, err)
+		return b
+	}
+	s4 := mk("sieve-3n+1-k4", "emit", "sieve", "-k", "4")
+	s6 := mk("sieve-5n+1-k6", "emit", "sieve", "-k", "6", "-map", "5n+1", "-cap", "200")
+	r := mk("range-3n+1-k4", "emit", "range", "-sieve", filepath.Join(dir, "sieve-3n+1-k4"), "-from", "1", "-to", "30", "-block", "5")
+	return []good{{"sieve-3n+1-k4", "", true, s4}, {"sieve-5n+1-k6", "", false, s6}, {"range-3n+1-k4-to-30", "sieve-3n+1-k4", true, r}}
+}
+
+// layoutBoundaries lists the offsets where fields of the file begin.
+func layoutBoundaries(b []byte) []int {
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	if err != nil {
+		return nil
+	}
+	out := []int{8, 9, 10, 14, cert.PreambleSize, int(rd.Layout.TreeOff), int(rd.Layout.OffsetsOff)}
+	for _, o := range rd.Offs {
+		out = append(out, int(o))
+	}
+	for l := range rd.Layout.Sizes {
+		out = append(out, int(rd.Layout.NodeOff(l, 0)))
+	}
+	sort.Ints(out)
+	return out
+}
+
+// reseal rebuilds a certificate from its header bytes and records, with
+// every hash and offset recomputed.
+func reseal(header []byte, recs [][]byte) []byte {
+	binary.BigEndian.PutUint32(header[10:], uint32(len(recs)))
+	var f memFile
+	w, err := cert.NewWriter(&f, header)
+	if err != nil {
+		panic(err)
+	}
+	for _, r := range recs {
+		if err := w.WriteRecord(r, cert.LeafHash(r)); err != nil {
+			panic(err)
+		}
+	}
+	if _, _, err := w.Close(); err != nil {
+		panic(err)
+	}
+	return f.b
+}
+
+func records(b []byte) (header []byte, recs [][]byte) {
+	rd, err := cert.NewReader(bytes.NewReader(b))
+	if err != nil {
+		panic(err)
+	}
+	for {
+		r, err := rd.Next()
+		if err != nil {
+			return append([]byte(nil), rd.Header...), recs
+		}
+		recs = append(recs, r)
+	}
+}
+
+func generate(t *testing.T) []vector {
+	goods := emitGood(t, t.TempDir())
+	var out []vector
+	count := map[string]int{}
+	// add records a vector; forged says its hashes were recomputed over a
+	// false claim, so that it is a claim failure when its hashes hold.
+	add := func(g good, desc string, data []byte, forged bool, flip string) {
+		dec, hashes := classify(data)
+		checkClass := hashes
+		if hashes == "ok" {
+			checkClass = "valid"
+			if forged {
+				checkClass = "claim"
+			}
+		}
+		sieve := ""
+		if g.sieve != "" {
+			sieve = g.sieve + "-0000.vec"
+		}
+		out = append(out, vector{
+			name:        fmt.Sprintf("%s-%04d.vec", g.name, count[g.name]),
+			description: desc, sieve: sieve, decoder: dec, check: checkClass, show: showOutcome(data), flip: flip, data: data,
+		})
+		count[g.name]++
+	}
+	rng := rand.New(rand.NewPCG(6, 1))
+	for _, g := range goods {
+		b := g.data
+		add(g, "the good certificate", b, false, "")
+		for i := range len(b) * 8 {
+			if !g.flips {
+				break
+			}
+			bad := bytes.Clone(b)
+			bad[i/8] ^= 0x80 >> (i % 8)
+			add(g, fmt.Sprintf("bit %d of byte %d flipped", 7-i%8, i/8), bad, false, fmt.Sprintf("%s-0000.vec %d %d", g.name, i/8, 7-i%8))
+		}
+		cuts := layoutBoundaries(b)
+		for range 8 {
+			cuts = append(cuts, 1+rng.IntN(len(b)-1))
+		}
+		for _, n := range cuts {
+			if n > 0 && n < len(b) {
+				add(g, fmt.Sprintf("truncated to %d bytes", n), b[:n], false, "")
+			}
+		}
+		add(g, "one byte of leading garbage", append([]byte{0}, b...), false, "")
+		add(g, "one byte of trailing garbage", append(bytes.Clone(b), 0), false, "")
+		add(g, "a copy of itself appended", append(bytes.Clone(b), b...), false, "")
+		for _, d := range []int{-1, 1} {
+			for _, field := range []struct {
+				name string
+				off  int
+			}{{"record count", 10}, {"header length", 14}} {
+				bad := bytes.Clone(b)
+				binary.BigEndian.PutUint32(bad[field.off:], uint32(int(binary.BigEndian.Uint32(bad[field.off:]))+d))
+				add(g, fmt.Sprintf("the %s off by %+d", field.name, d), bad, false, "")
+			}
+		}
+		header, recs := records(b)
+		if len(recs) >= 2 {
+			sw := append([][]byte(nil), recs...)
+			sw[0], sw[len(sw)-1] = sw[len(sw)-1], sw[0]
+			add(g, "first and last records swapped, hashes recomputed", reseal(bytes.Clone(header), sw), true, "")
+			add(g, "last record dropped, hashes recomputed", reseal(bytes.Clone(header), recs[:len(recs)-1]), true, "")
+		}
+		add(g, "last record duplicated, hashes recomputed", reseal(bytes.Clone(header), append(append([][]byte(nil), recs...), recs[len(recs)-1])), true, "")
+		rd, _ := cert.NewReader(bytes.NewReader(b))
+		hashAt := func(level, i int) int { return int(rd.Layout.NodeOff(level, i)) }
+		if len(rd.Levels[0]) >= 2 {
+			bad := bytes.Clone(b)
+			x, y := hashAt(0, 0), hashAt(0, 1)
+			tmp := append([]byte(nil), bad[x:x+32]...)
+			copy(bad[x:], bad[y:y+32])
+			copy(bad[y:], tmp)
+			add(g, "the first two leaf hashes swapped", bad, false, "")
+			bad = bytes.Clone(b)
+			copy(bad[hashAt(0, 1):], bad[hashAt(0, 0):hashAt(0, 0)+32])
+			add(g, "a leaf hash duplicated over its neighbour", bad, false, "")
+		}
+	}
+	// A header from another certificate: with the old hashes, and resealed.
+	for i, g := range goods[:2] {
+		other := goods[1-i]
+		h2, _ := records(other.data)
+		_, recs := records(g.data)
+		b := bytes.Clone(g.data)
+		hl := len(h2)
+		if hl == int(binary.BigEndian.Uint32(b[14:]))+cert.PreambleSize {
+			copy(b, h2)
+			add(g, "the header of "+other.name+" over the same length", b, false, "")
+		}
+		add(g, "the header of "+other.name+", hashes recomputed", reseal(bytes.Clone(h2), recs), true, "")
+	}
+	return out
+}
+
+func writeVectors(t *testing.T, vs []vector) {
+	require.NoError(t, os.RemoveAll(vectorDir))
+	require.NoError(t, os.MkdirAll(vectorDir, 0o755))
+	for _, v := range vs {
+		require.NoError(t, os.WriteFile(filepath.Join(vectorDir, v.name), v.encode(), 0o644))
+	}
+}
+
+// TestVectors runs every vector through every entry point.
+func TestVectors(t *testing.T) {
+	fresh := generate(t)
+	if *update {
+		writeVectors(t, fresh)
+	}
+	files, err := filepath.Glob(filepath.Join(vectorDir, "*.vec"))
+	require.NoError(t, err)
+	require.NotEmpty(t, files, "no vectors: run go test ./cmd/descent -run TestVectors -update")
+	require.Len(t, files, len(fresh), "the vectors are out of date: run go test ./cmd/descent -run TestVectors -update")
+
+	// The sieves range vectors rest on are the good ones among the vectors.
+	dir := t.TempDir()
+	sieves := map[string]string{}
+	var vs []vector
+	for _, f := range files {
+		raw, err := os.ReadFile(f)
+		require.NoError(t, err)
+		v, err := parseVector(filepath.Base(f), raw)
+		require.NoError(t, err)
+		vs = append(vs, v)
+		if v.description == "the good certificate" {
+			path := filepath.Join(dir, v.name)
+			require.NoError(t, os.WriteFile(path, v.data, 0o644))
+			sieves[v.name] = path
+		}
+	}
+	byName := map[string]*vector{}
+	for i := range vs {
+		byName[vs[i].name] = &vs[i]
+	}
+	for i := range vs {
+		if f := vs[i].flip; f != "" {
+			var base string
+			var at, bit int
+			_, err := fmt.Sscanf(f, "%s %d %d", &base, &at, &bit)
+			require.NoError(t, err, vs[i].name)
+			require.NotNil(t, byName[base], "%s: no base %s", vs[i].name, base)
+			vs[i].data = bytes.Clone(byName[base].data)
+			vs[i].data[at] ^= 1 << bit
+		}
+	}
+	sort.Slice(fresh, func(i, j int) bool { return fresh[i].name < fresh[j].name })
+	for i := range fresh {
+		require.Equal(t, fresh[i].encode(), (&vs[i]).encode(), "%s is out of date: run go test ./cmd/descent -run TestVectors -update", vs[i].name)
+	}
+
+	behaved, failures := 0, []string{}
+	for _, v := range vs {
+		got := map[string]string{}
+		got["decoder"], _ = classify(v.data)
+		path := filepath.Join(dir, "v.dcert")
+		require.NoError(t, os.WriteFile(path, v.data, 0o644))
+		rep := check.Check(bytes.NewReader(v.data), check.Options{Sieve: sieves[v.sieve]})
+		got["check"] = checkClass(rep)
+		code, _, _ := runCLI("show", path)
+		got["show"] = map[int]string{exitOK: "ok", exitInvalid: "hash", exitUsage: "malformed"}[code]
+		want := map[string]string{"decoder": v.decoder, "check": v.check, "show": v.show}
+		ok := true
+		for _, ep := range []string{"decoder", "check", "show"} {
+			if got[ep] != want[ep] {
+				ok = false
+				failures = append(failures, fmt.Sprintf("%s (%s): %s gave %s, want %s (%v)", v.name, v.description, ep, got[ep], want[ep], rep.Err()))
+			}
+		}
+		if ok {
+			behaved++
+		}
+	}
+	if len(failures) > 0 {
+		if len(failures) > 20 {
+			failures = append(failures[:20], fmt.Sprintf("... and %d more", len(failures)-20))
+		}
+		t.Fatalf("%d of %d vectors behaved:\n%s", behaved, len(vs), strings.Join(failures, "\n"))
+	}
+	t.Logf("%d of %d vectors behaved", behaved, len(vs))
+}
+
+// checkClass maps a checker report to a vector outcome.
+func checkClass(rep *check.Report) string {
+	err := rep.Err()
+	switch {
+	case err == nil:
+		return "valid"
+	case errors.Is(err, check.ErrLimits):
+		return "limits"
+	case errors.Is(err, check.ErrMalformed):
+		return "malformed"
+	case rep.Reason == "hash" || rep.Reason == "tree" || rep.Reason == "root":
+		return "hash"
+	}
+	return "claim"
+}
