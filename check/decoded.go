@@ -17,6 +17,48 @@ type Decoded struct {
 	Tree       [][][hashLen]byte
 	Offsets    []int64
 	Chunks     []DecodedChunk
+
+	// A range certificate: the header's fields and the blocks.
+	Range  *DecodedRange
+	Blocks []DecodedBlock
+}
+
+// DecodedRange is the header of a range certificate.
+type DecodedRange struct {
+	SieveRoot     [hashLen]byte
+	From, To      string
+	BlockExp      int
+	Totals        DecodedSummary
+	SieveK, Count int
+}
+
+// DecodedSummary is a block's or the range's summary, numbers in decimal.
+type DecodedSummary struct {
+	Counts   [5]string
+	Sum      string
+	MaxSigma uint32
+	MaxAt    string
+	Records  []RecordReport
+	Cycles   []CycleReport
+}
+
+// DecodedBlock is one block record.
+type DecodedBlock struct {
+	Index     uint32
+	Summary   DecodedSummary
+	Undecided []string
+}
+
+func decodedSummary(s *summary) DecodedSummary {
+	d := DecodedSummary{Sum: s.sum.String(), MaxSigma: s.maxSigma}
+	for i, c := range s.counts {
+		d.Counts[i] = c.String()
+	}
+	if s.maxAt != nil {
+		d.MaxAt = s.maxAt.String()
+	}
+	d.Records, _, d.Cycles = describeSummary(s)
+	return d
 }
 
 // DecodedChunk is one chunk record and the leaves its codes describe.
@@ -40,6 +82,9 @@ func Decode(r io.Reader) (*Decoded, error) {
 	f, fl := openFile(r)
 	if fl != nil {
 		return nil, fl
+	}
+	if f.rng != nil {
+		return decodeRange(f)
 	}
 	rep := &Report{}
 	rep.describe(f)
@@ -101,4 +146,32 @@ func decodeChunk(rec []byte, i, j int, base int64) (DecodedChunk, *Failure) {
 		return c, malformed(base+chunkHead, "chunk %d: the codes do not fit the trie grammar from depth %d to %d", i, w.begin, w.end)
 	}
 	return c, nil
+}
+
+func decodeRange(f *file) (*Decoded, error) {
+	h := f.rng
+	d := &Decoded{Header: f.header, Records: f.records, Map: mapName(h.a, h.b), K: h.k, Cap: h.cap, Tree: f.tree, Offsets: f.offsets,
+		Range: &DecodedRange{SieveRoot: h.sieveRoot, From: h.lo.String(), To: h.hi.String(), BlockExp: h.e, Totals: decodedSummary(&h.tot),
+			SieveK: h.k, Count: f.records}}
+	for i := 0; ; i++ {
+		rec, fl := f.record()
+		if fl != nil {
+			return nil, fl
+		}
+		if rec == nil {
+			return d, nil
+		}
+		b, fl := parseBlock(rec, f.offsets[i])
+		if fl != nil {
+			return nil, fl
+		}
+		if b.index != uint32(i) {
+			return nil, malformed(f.offsets[i], "record %d says it is block %d", i, b.index)
+		}
+		db := DecodedBlock{Index: b.index, Summary: decodedSummary(&b.sum), Undecided: []string{}}
+		for _, n := range b.undecided {
+			db.Undecided = append(db.Undecided, n.String())
+		}
+		d.Blocks = append(d.Blocks, db)
+	}
 }
