@@ -66,7 +66,7 @@ func parsePreamble(b []byte) (preamble, error) {
 		return p, formatErr(8, "unknown format version %d (this program reads version %d)", b[8], Version)
 	}
 	p.kind = b[9]
-	if p.kind != KindSieve && p.kind != KindRange {
+	if p.kind != KindSieve && p.kind != KindRange && p.kind != KindShard {
 		return p, formatErr(9, "unknown certificate kind %q", p.kind)
 	}
 	records := binary.BigEndian.Uint32(b[10:])

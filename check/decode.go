@@ -17,6 +17,7 @@ const (
 	version     = 1
 	kindSieve   = 's'
 	kindRange   = 'r'
+	kindShard   = 'h'
 	preambleLen = 18
 	hashLen     = 32
 
@@ -56,7 +57,8 @@ type file struct {
 	header  []byte // preamble and body: leaf 0
 	records int
 	hdr     *sieveHeader // a sieve certificate, or
-	rng     *rangeHeader // a range certificate
+	rng     *rangeHeader // a range certificate; either may be
+	shard   *shardHeader // the whole of which this file is a shard
 	tree    [][][hashLen]byte
 	offsets []int64
 	next    int
@@ -79,50 +81,68 @@ func (f *file) read(n int64, what string) ([]byte, *Failure) {
 
 func openFile(r io.Reader) (*file, *Failure) {
 	f := &file{src: r}
-	pre, fl := f.read(preambleLen, "preamble")
-	if fl != nil {
+	if fl := f.readHeader(); fl != nil {
 		return f, fl
 	}
+	return f, f.readIndex()
+}
+
+// readHeader reads and parses the preamble and the header body.
+func (f *file) readHeader() *Failure {
+	pre, fl := f.read(preambleLen, "preamble")
+	if fl != nil {
+		return fl
+	}
 	if string(pre[:8]) != magic {
-		return f, malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
+		return malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
 	}
 	if pre[8] != version {
-		return f, malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
+		return malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
 	}
-	if pre[9] != kindSieve && pre[9] != kindRange {
-		return f, malformed(9, "unknown certificate kind %q", pre[9])
+	if pre[9] != kindSieve && pre[9] != kindRange && pre[9] != kindShard {
+		return malformed(9, "unknown certificate kind %q", pre[9])
 	}
 	records := binary.BigEndian.Uint32(pre[10:])
 	if records < 1 || records > maxRecords {
-		return f, malformed(10, "the preamble declares %d records; the format allows 1 to %d", records, maxRecords)
+		return malformed(10, "the preamble declares %d records; the format allows 1 to %d", records, maxRecords)
 	}
 	bodyLen := binary.BigEndian.Uint32(pre[14:])
 	if bodyLen > maxBody {
-		return f, malformed(14, "header body of %d bytes is over the cap of %d", bodyLen, maxBody)
+		return malformed(14, "header body of %d bytes is over the cap of %d", bodyLen, maxBody)
 	}
 	body, fl := f.read(int64(bodyLen), "header")
 	if fl != nil {
-		return f, fl
+		return fl
 	}
 	f.header = append(pre, body...)
 	f.records = int(records)
-	if pre[9] == kindRange {
+	if pre[9] == kindShard {
+		if f.shard, fl = parseShardHeader(body, f.records); fl != nil {
+			return fl
+		}
+		f.hdr, f.rng = f.shard.hdr, f.shard.rng
+	} else if pre[9] == kindRange {
 		if f.rng, fl = parseRangeHeader(body, f.records); fl != nil {
-			return f, fl
+			return fl
 		}
 	} else {
 		if f.hdr, fl = parseSieveHeader(body); fl != nil {
-			return f, fl
+			return fl
 		}
 		if fl := f.hdr.sane(f.records); fl != nil {
-			return f, fl
+			return fl
 		}
 	}
 
+	return nil
+}
+
+// readIndex reads the stored tree and the record offsets.
+func (f *file) readIndex() *Failure {
 	for level, size := range levelSizes(f.records + 1) {
 		b, fl := f.read(int64(size)*hashLen, fmt.Sprintf("stored tree, level %d", level))
 		if fl != nil {
-			return f, fl
+			return fl
 		}
 		hs := make([][hashLen]byte, size)
 		for i := range hs {
@@ -132,24 +152,24 @@ func openFile(r io.Reader) (*file, *Failure) {
 	}
 	b, fl := f.read(8*int64(f.records+1), "record offsets")
 	if fl != nil {
-		return f, fl
+		return fl
 	}
 	start := f.off
 	for i := 0; i <= f.records; i++ {
 		off := int64(binary.BigEndian.Uint64(b[8*i:]))
 		at := start - int64(len(b)) + 8*int64(i)
 		if i == 0 && off != start {
-			return f, malformed(at, "the first record is said to start at %d; it starts at %d", off, start)
+			return malformed(at, "the first record is said to start at %d; it starts at %d", off, start)
 		}
 		if i > 0 {
 			prev := f.offsets[i-1]
 			if off <= prev || off-prev > maxRecordLen {
-				return f, malformed(at, "record %d would span offsets %d to %d", i-1, prev, off)
+				return malformed(at, "record %d would span offsets %d to %d", i-1, prev, off)
 			}
 		}
 		f.offsets = append(f.offsets, off)
 	}
-	return f, nil
+	return nil
 }
 
 // record returns the next record, or nil at the end once it has made sure
@@ -315,4 +335,64 @@ func mapName(a uint32, b int32) string {
 		return fmt.Sprintf("%dn%d", a, b)
 	}
 	return fmt.Sprintf("%dn+%d", a, b)
+}
+
+// shardHeader is a shard's header: shard index of of, the whole's records
+// [first, first+count), and the whole's header (for a range, with totals
+// zero).
+type shardHeader struct {
+	whole        byte
+	index, of    int
+	first, count int
+	wholeHeader  []byte
+	wholeRecords int
+	hdr          *sieveHeader
+	rng          *rangeHeader
+}
+
+func parseShardHeader(body []byte, records int) (*shardHeader, *Failure) {
+	p := &fields{b: body}
+	h := &shardHeader{whole: p.byte1("whole kind")}
+	h.index = int(p.int32be("shard index"))
+	h.of = int(p.int32be("shard count"))
+	h.first = int(p.int32be("first record"))
+	h.count = int(p.int32be("record count"))
+	n := int(p.int32be("whole header length"))
+	h.wholeHeader = p.next(n, "whole header")
+	if p.bad != nil {
+		return nil, p.bad
+	}
+	if p.pos != len(body) {
+		return nil, malformed(int64(preambleLen+p.pos), "%d bytes follow the whole's header", len(body)-p.pos)
+	}
+	w := h.wholeHeader
+	if len(w) < preambleLen || string(w[:8]) != magic || w[8] != version || (w[9] != kindSieve && w[9] != kindRange) || w[9] != h.whole {
+		return nil, malformed(preambleLen+21, "the whole's header is not a sieve or range header of the kind the shard names")
+	}
+	h.wholeRecords = int(binary.BigEndian.Uint32(w[10:]))
+	wb := w[preambleLen:]
+	if int(binary.BigEndian.Uint32(w[14:])) != len(wb) {
+		return nil, malformed(preambleLen+21, "the whole's header is cut")
+	}
+	// Shard i of n holds the whole's records [floor(i*R/n), floor((i+1)*R/n)).
+	first := int(int64(h.index) * int64(h.wholeRecords) / int64(h.of))
+	last := int(int64(h.index+1) * int64(h.wholeRecords) / int64(h.of))
+	switch {
+	case h.of < 1 || h.of > h.wholeRecords || h.index < 0 || h.index >= h.of:
+		return nil, malformed(preambleLen+1, "shard %d of %d of a whole of %d records", h.index, h.of, h.wholeRecords)
+	case h.first != first || h.count != last-first || h.count != records:
+		return nil, malformed(preambleLen+9, "shard %d of %d must hold records %d to %d, one per record of the file", h.index, h.of, first, last-1)
+	}
+	var fl *Failure
+	if h.whole == kindSieve {
+		if h.hdr, fl = parseSieveHeader(wb); fl == nil {
+			fl = h.hdr.sane(h.wholeRecords)
+		}
+	} else {
+		h.rng, fl = parseRangeHeader(wb, h.wholeRecords)
+	}
+	if fl != nil {
+		return nil, fl
+	}
+	return h, nil
 }

@@ -13,23 +13,14 @@ import (
 // and verified; f is positioned at its first record.
 func checkRange(f *file, rep *Report, o Options) *Report {
 	h := f.rng
-	if o.Sieve == "" {
-		return rep.fail(&Failure{Class: ErrMalformed, Reason: "sieve",
-			Msg: fmt.Sprintf("this range certificate rests on the sieve certificate with root %s; give it with -sieve FILE", hexHash(h.sieveRoot))})
-	}
-	srep := File(o.Sieve, Options{Workers: o.Workers})
-	if !srep.Valid {
-		return rep.fail(invalid("sieve", Where{}, "the sieve certificate %s it rests on is not valid: %v", o.Sieve, srep.Err()))
-	}
-	if srep.Kind != "sieve" || srep.Root != hexHash(h.sieveRoot) {
-		return rep.fail(invalid("sieve", Where{Claim: "sieve root", Expected: hexHash(h.sieveRoot), Found: srep.Root},
-			"the certificate rests on the sieve %s, but %s is %s", hexHash(h.sieveRoot), o.Sieve, srep.Root))
-	}
-	if srep.Map != rep.Map || srep.K != h.k || srep.J != h.k {
-		return rep.fail(invalid("sieve", Where{Claim: "sieve"}, "the sieve is for %s with k = %d, j = %d; the range needs %s with k = j = %d",
-			srep.Map, srep.K, srep.J, rep.Map, h.k))
+	if fl := rangeSieve(h, rep, o); fl != nil {
+		return rep.fail(fl)
 	}
 
+	base := 0 // the global index of the file's first block
+	if f.shard != nil {
+		base = f.shard.first
+	}
 	var blocks []*blockRec
 	for i := 0; ; i++ {
 		rec, fl := f.record()
@@ -47,12 +38,21 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		if fl != nil {
 			return rep.fail(fl)
 		}
-		if b.index != uint32(i) {
-			return rep.fail(malformed(f.offsets[i], "record %d says it is block %d", i, b.index))
+		if b.index != uint32(base+i) {
+			return rep.fail(malformed(f.offsets[i], "record %d says it is block %d", base+i, b.index))
 		}
 		blocks = append(blocks, b)
 	}
-	if fl := checkTotals(h, blocks); fl != nil {
+	if f.shard != nil {
+		// A shard's copy of the whole's header leaves the totals to merge.
+		zero := summary{sum: new(big.Int)}
+		for i := range zero.counts {
+			zero.counts[i] = new(big.Int)
+		}
+		if d := diffSummary(&zero, &h.tot); d != "" {
+			return rep.fail(invalid("count", Where{Claim: "totals in a shard"}, "a shard's copy of the whole's header must have zero totals: %s", d))
+		}
+	} else if fl := checkTotals(h, blocks); fl != nil {
 		return rep.fail(fl)
 	}
 	for _, b := range blocks {
@@ -62,25 +62,52 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 	}
 
 	s := newSearcher(h)
-	chosen := make([]int, len(blocks))
-	for i := range chosen {
-		chosen[i] = i
+	from, upto := 0, len(blocks) // the blocks to derive, by position in the file
+	if o.Span != nil {
+		from, upto = spanOf(*o.Span, len(blocks))
+		rep.Span = &SpanReport{Index: o.Span.I, Of: o.Span.N, First: from, Count: upto - from}
 	}
-	if o.Sample > 0 && o.Sample < len(blocks) {
+	var chosen []int
+	for i := from; i < upto; i++ {
+		chosen = append(chosen, i)
+	}
+	if o.Sample > 0 && o.Sample < len(chosen) {
 		chosen = sample(f.tree[len(f.tree)-1][0], o.Seed, len(blocks), o.Sample)
 		rep.Audit = audit(len(blocks), len(chosen))
 	}
 	for _, i := range chosen {
-		want, _ := s.derive(i, defaultWorkers(o.Workers))
+		want, _ := s.derive(base+i, defaultWorkers(o.Workers))
 		if fl := s.sv.work.exceeded(); fl != nil {
 			return rep.fail(fl)
 		}
-		if fl := compareBlock(i, want, blocks[i]); fl != nil {
+		if fl := compareBlock(base+i, want, blocks[i]); fl != nil {
 			return rep.fail(fl)
 		}
 	}
 	rep.Valid = true
 	return rep
+}
+
+// rangeSieve checks the sieve certificate a range rests on: given, valid,
+// the one it names, and for the same map with j = k.
+func rangeSieve(h *rangeHeader, rep *Report, o Options) *Failure {
+	if o.Sieve == "" {
+		return &Failure{Class: ErrMalformed, Reason: "sieve",
+			Msg: fmt.Sprintf("this range certificate rests on the sieve certificate with root %s; give it with -sieve FILE", hexHash(h.sieveRoot))}
+	}
+	srep := File(o.Sieve, Options{Workers: o.Workers})
+	if !srep.Valid {
+		return invalid("sieve", Where{}, "the sieve certificate %s it rests on is not valid: %v", o.Sieve, srep.Err())
+	}
+	if srep.Kind != "sieve" || srep.Root != hexHash(h.sieveRoot) {
+		return invalid("sieve", Where{Claim: "sieve root", Expected: hexHash(h.sieveRoot), Found: srep.Root},
+			"the certificate rests on the sieve %s, but %s is %s", hexHash(h.sieveRoot), o.Sieve, srep.Root)
+	}
+	if srep.Map != rep.Map || srep.K != h.k || srep.J != h.k {
+		return invalid("sieve", Where{Claim: "sieve"}, "the sieve is for %s with k = %d, j = %d; the range needs %s with k = j = %d",
+			srep.Map, srep.K, srep.J, rep.Map, h.k)
+	}
+	return nil
 }
 
 // sample picks n distinct blocks of m (SPEC.md, "Audits"): with key =

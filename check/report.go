@@ -53,6 +53,7 @@ var Reasons = map[string]string{
 	"count":            "a count in the header differs from the count the claims give",
 	"exception":        "an exception is missing, invented, or has the wrong fate",
 	"sieve":            "the sieve certificate a range rests on is missing, invalid, or another one",
+	"audit":            "a part, with its audit path, does not lead to the given root",
 	"block":            "a block of a range does not match its re-derivation",
 }
 
@@ -134,6 +135,9 @@ type Report struct {
 	Cycles          []CycleReport
 	Undecided       []Num
 	Audit           *Audit
+	Shard           *SpanReport // a shard file: which records of the whole it holds
+	Span            *SpanReport // a share checked with Options.Span
+	BytesRead       int64       // a part check: the bytes of the file it read
 
 	Reason string
 	Error  string
@@ -221,7 +225,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 	}
 	c := common{r.File, r.Valid, r.Kind, r.Root, r.Map}
 	f := failure{r.Reason, r.Error, r.Where}
-	if r.Kind == "range" {
+	if r.Kind == "range" || r.Kind == "range shard" {
 		return json.Marshal(struct {
 			common
 			SieveRoot       string         `json:"sieve_root"`
@@ -237,9 +241,12 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 			Cycles          []CycleReport  `json:"cycles"`
 			Undecided       []Num          `json:"undecided"`
 			Audit           *Audit         `json:"audit,omitempty"`
+			Shard           *SpanReport    `json:"shard,omitempty"`
+			Span            *SpanReport    `json:"span,omitempty"`
+			BytesRead       int64          `json:"bytes_read,omitempty"`
 			failure
 		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, orEmpty(r.Records), r.MaxStoppingTime,
-			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, f})
+			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, r.Shard, r.Span, r.BytesRead, f})
 	}
 	return json.Marshal(struct {
 		common
@@ -250,8 +257,11 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		Survivors  Num               `json:"survivors,omitempty"`
 		ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
 		Exceptions []ExceptionReport `json:"exceptions"`
+		Shard      *SpanReport       `json:"shard,omitempty"`
+		Span       *SpanReport       `json:"span,omitempty"`
+		BytesRead  int64             `json:"bytes_read,omitempty"`
 		failure
-	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), f})
+	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, f})
 }
 
 func orEmpty[T any](s []T) []T {

@@ -37,6 +37,10 @@ type RangeOptions struct {
 	// Progress is called after each block with the blocks done and the
 	// numbers covered so far.
 	Progress func(done, total int, numbers *big.Int)
+	// Shard, if set, writes only this shard: its blocks, under the whole's
+	// header with totals zero (merge adds them up). Done then counts from
+	// the shard's first block.
+	Shard *Shard
 }
 
 // RangeResult describes a written range certificate.
@@ -128,24 +132,38 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	first, nblocks := cert.BlockSpan(p.Lo, p.Hi, p.E)
 	g.first = first
 	total := int(nblocks.Int64())
-	if len(o.Done) > total {
-		return nil, fmt.Errorf("emit: %d completed blocks for a range of %d", len(o.Done), total)
+	from, upto := 0, total // the blocks this run writes
+	var cw *cert.Writer
+	if o.Shard != nil {
+		h := rangeHeader(r, p, total, zeroSummary())
+		hb, err := h.Marshal()
+		if err != nil {
+			return nil, err
+		}
+		var count int
+		if cw, from, count, err = shardWriter(w, cert.KindRange, hb, total, o.Shard); err != nil {
+			return nil, err
+		}
+		upto = from + count
+	}
+	if len(o.Done) > upto-from {
+		return nil, fmt.Errorf("emit: %d completed blocks for a run of %d", len(o.Done), upto-from)
 	}
 	workers := o.Workers
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
 
-	recs := make([][]byte, 0, total)
+	recs := make([][]byte, 0, upto-from)
 	var blocks []*cert.Block
 	covered := new(big.Int)
-	for i := 0; i < total; i++ {
+	for i := from; i < upto; i++ {
 		var b *cert.Block
-		if i < len(o.Done) {
-			if b, err = cert.ParseBlock(o.Done[i], 0); err != nil || b.Index != uint32(i) {
+		if i-from < len(o.Done) {
+			if b, err = cert.ParseBlock(o.Done[i-from], 0); err != nil || b.Index != uint32(i) {
 				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged: %v", i, err)
 			}
-			recs = append(recs, o.Done[i])
+			recs = append(recs, o.Done[i-from])
 		} else {
 			if b, err = g.block(ctx, i, workers); err != nil {
 				return nil, err
@@ -165,19 +183,19 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		lo, hi := g.span(i)
 		covered.Add(covered, hi.Sub(hi, lo))
 		if o.Progress != nil {
-			o.Progress(i+1, total, covered)
+			o.Progress(i+1-from, upto-from, covered)
 		}
 	}
 
-	h := &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap,
-		Lo: p.Lo, Hi: p.Hi, Blocks: total, Totals: totals(blocks)}
-	hb, err := h.Marshal()
-	if err != nil {
-		return nil, err
-	}
-	cw, err := cert.NewWriter(w, hb)
-	if err != nil {
-		return nil, err
+	h := rangeHeader(r, p, total, totals(blocks))
+	if cw == nil {
+		hb, err := h.Marshal()
+		if err != nil {
+			return nil, err
+		}
+		if cw, err = cert.NewWriter(w, hb); err != nil {
+			return nil, err
+		}
 	}
 	for _, rec := range recs {
 		if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
@@ -189,6 +207,16 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		return nil, err
 	}
 	return &RangeResult{Header: h, Root: root, Size: size}, nil
+}
+
+func rangeHeader(r *rules, p RangeParams, blocks int, t cert.Summary) *cert.RangeHeader {
+	return &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap,
+		Lo: p.Lo, Hi: p.Hi, Blocks: blocks, Totals: t}
+}
+
+func zeroSummary() cert.Summary {
+	z := func() *big.Int { return new(big.Int) }
+	return cert.Summary{Sieve: z(), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z()}
 }
 
 // span returns the numbers block i covers: [lo, hi).
@@ -536,8 +564,7 @@ func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
 // totals sums block summaries into the header's: records and the maximum
 // are taken in block order, so the first of equals wins.
 func totals(blocks []*cert.Block) cert.Summary {
-	s := cert.Summary{Sieve: new(big.Int), Search: new(big.Int), Small: new(big.Int), Cycle: new(big.Int),
-		Undecided: new(big.Int), SigmaSum: new(big.Int)}
+	s := zeroSummary()
 	cycles := map[string]*cert.CycleCount{}
 	for _, b := range blocks {
 		for _, pair := range [][2]*big.Int{{s.Sieve, b.Sieve}, {s.Search, b.Search}, {s.Small, b.Small},

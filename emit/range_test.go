@@ -173,7 +173,7 @@ func TestDeterministicAndResumable(t *testing.T) {
 	p := RangeParams{Sieve: sres.Header, SieveRoot: sres.Root, Lo: lo, Hi: hi, E: 16}
 	require.NoError(t, NormalizeRange(&p))
 	path := filepath.Join(t.TempDir(), "run.partial")
-	j, done, err := OpenJournal(path, p)
+	j, done, err := OpenJournal(path, p, nil)
 	require.NoError(t, err)
 	require.Empty(t, done)
 	ctx, cancel := context.WithCancel(context.Background())
@@ -193,7 +193,7 @@ func TestDeterministicAndResumable(t *testing.T) {
 	require.NoError(t, err)
 	require.NoError(t, os.WriteFile(path, append(raw, 0, 0, 0, 9, 1, 2), 0o644))
 
-	j, done, err = OpenJournal(path, p)
+	j, done, err = OpenJournal(path, p, nil)
 	require.NoError(t, err)
 	require.Len(t, done, 5)
 	f = memFile{}
@@ -205,10 +205,10 @@ func TestDeterministicAndResumable(t *testing.T) {
 	// A journal left by a run of other parameters is refused.
 	q := p
 	q.Cap++
-	j, _, err = OpenJournal(path, q)
+	j, _, err = OpenJournal(path, q, nil)
 	require.NoError(t, err)
 	require.NoError(t, j.Close())
-	_, _, err = OpenJournal(path, p)
+	_, _, err = OpenJournal(path, p, nil)
 	require.True(t, errors.Is(err, errJournalParams), "%v", err)
 }
 

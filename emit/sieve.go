@@ -33,6 +33,30 @@ const DefaultCap = 100000
 type Options struct {
 	Workers  int                   // parallel chunk encoders; 0 means GOMAXPROCS
 	Progress func(done, total int) // called after each chunk is written
+	Shard    *Shard                // if set, write only this shard of the certificate
+}
+
+// Shard names shard I of N (SPEC.md, section 7): the records
+// cert.ShardSpan(I, N, R) of the whole.
+type Shard struct{ I, N int }
+
+// shardWriter starts a shard file holding records [first, first+count)
+// of a whole certificate with header whole.
+func shardWriter(w io.WriterAt, kind byte, whole []byte, records int, sh *Shard) (*cert.Writer, int, int, error) {
+	if sh.N < 1 || sh.I < 0 || sh.I >= sh.N {
+		return nil, 0, 0, fmt.Errorf("shard %d/%d: want 0 <= i < n", sh.I, sh.N)
+	}
+	if sh.N > records {
+		return nil, 0, 0, fmt.Errorf("%d shards of a certificate of %d records: at most one shard per record", sh.N, records)
+	}
+	first, count := cert.ShardSpan(sh.I, sh.N, records)
+	h := &cert.ShardHeader{Whole: kind, Index: sh.I, Of: sh.N, First: first, Count: count, WholeHeader: whole}
+	hb, err := h.Marshal()
+	if err != nil {
+		return nil, 0, 0, err
+	}
+	cw, err := cert.NewWriter(w, hb)
+	return cw, first, count, err
 }
 
 // Result describes a written certificate.
@@ -73,10 +97,20 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err != nil {
 		return nil, err
 	}
-	cw, err := cert.NewWriter(w, hb)
+	// Records [first, last) are written: all of them, or a shard's.
+	first, last := 0, h.Chunks
+	var cw *cert.Writer
+	if o.Shard != nil {
+		var count int
+		cw, first, count, err = shardWriter(w, cert.KindSieve, hb, h.Chunks, o.Shard)
+		last = first + count
+	} else {
+		cw, err = cert.NewWriter(w, hb)
+	}
 	if err != nil {
 		return nil, err
 	}
+	want := func(rec int) bool { return rec >= first && rec < last }
 
 	d := cert.SplitDepth(r.j)
 	total := newTally(r.j)
@@ -87,9 +121,11 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err := top.top(0, 0, 0, 0); err != nil {
 		return nil, err
 	}
-	rec := cert.Chunk{From: 0, To: d, NBits: top.w.Len(), Payload: top.w.Bytes()}.Marshal()
-	if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
-		return nil, err
+	if want(0) {
+		rec := cert.Chunk{From: 0, To: d, NBits: top.w.Len(), Payload: top.w.Bytes()}.Marshal()
+		if err := cw.WriteRecord(rec, cert.LeafHash(rec)); err != nil {
+			return nil, err
+		}
 	}
 	top.tally.open = 0 // the stubs are not survivors; their subtrees count
 	total.add(top.tally)
@@ -108,7 +144,11 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 		defer close(jobs)
 		defer close(order)
 		gen := encoder{r: r, end: d, tb: -1, tally: newTally(r.j)}
+		rec := 0
 		gen.stub = func(res uint64, s int, v uint64) error {
+			if rec++; !want(rec) {
+				return nil
+			}
 			st := stub{res: res, s: s, v: v, out: make(chan chunkOut, 1)}
 			if !trySend(ctx, order, st.out) || !trySend(ctx, jobs, st) {
 				return ctx.Err()
@@ -132,7 +172,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 		})
 	}
 	g.Go(func() error { // the writer: chunks in order
-		done, stubs := 0, int(h.Chunks-1)
+		done, stubs := 0, last-max(first, 1)
 		for out := range order {
 			var c chunkOut
 			select {
@@ -157,8 +197,10 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err := g.Wait(); err != nil {
 		return nil, err
 	}
-	if err := r.agree(h, total); err != nil {
-		return nil, err
+	if o.Shard == nil { // a shard holds only part of what the counts add up
+		if err := r.agree(h, total); err != nil {
+			return nil, err
+		}
 	}
 	root, size, err := cw.Close()
 	if err != nil {

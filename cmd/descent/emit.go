@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"os"
 
 	"descent/cert"
 	"descent/emit"
@@ -23,6 +24,7 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	mapFlag := fs.String("map", "3n+1", "the `map` T: n/2 for even n, (an+b)/2 for odd n, written an+b or an-b")
 	capFlag := fs.Uint("cap", emit.DefaultCap, "step `cap` for deciding the fate of each exception")
 	workers := fs.Int("workers", 0, "parallel chunk encoders (default: all cores)")
+	shardFlag := fs.String("shard", "", "write only shard `i/N` (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
 	out := fs.String("o", "", "write the certificate to `FILE`")
 	if code, stop := c.parse(fs, args[1:]); stop {
 		return code
@@ -32,6 +34,11 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 	if !c.workersOK("emit sieve", *workers) {
+		return exitUsage
+	}
+	shard, err := parseShard(*shardFlag, os.Getenv)
+	if err != nil {
+		c.errorf("emit sieve: %v", err)
 		return exitUsage
 	}
 	if *out == "" {
@@ -66,7 +73,7 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		progress = func(done, total int) { update(done, total, "") }
 	}
 	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag)},
-		emit.Options{Workers: *workers, Progress: progress})
+		emit.Options{Workers: *workers, Progress: progress, Shard: shard})
 	finish()
 	if err == nil {
 		err = f.commit()
@@ -82,6 +89,11 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 	h := res.Header
+	if shard != nil {
+		fmt.Fprintf(c.stdout, "%s: shard %d of %d of a sieve certificate, %d bytes\n  shard root %v\n",
+			*out, shard.I, shard.N, res.Size, res.Root)
+		return exitOK
+	}
 	fmt.Fprintf(c.stdout, "%s: sieve certificate, %d bytes\n  root       %v\n  claim      %s\n",
 		*out, res.Size, res.Root, factsFromHeader(h).summary())
 	return exitOK

@@ -20,6 +20,7 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 	block := fs.Int("block", 0, "blocks of 2^`E` numbers (default: the sieve's k + 4)")
 	capFlag := fs.Uint("cap", emit.DefaultRangeCap, "step `cap`: a number not decided within it is reported undecided")
 	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
+	shardFlag := fs.String("shard", "", "write only shard `i/N` of the blocks (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
 	out := fs.String("o", "", "write the certificate to `FILE`")
 	if code, stop := c.parse(fs, args); stop {
 		return code
@@ -37,18 +38,23 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 		c.errorf("emit range: -cap %d: at most %d", *capFlag, cert.MaxCap)
 		return exitUsage
 	}
+	shard, err := parseShard(*shardFlag, os.Getenv)
+	if err != nil {
+		c.errorf("emit range: %v", err)
+		return exitUsage
+	}
 	lo, err := parseNumber(*fromFlag)
 	if err == nil {
 		var hi *big.Int
 		if hi, err = parseNumber(*toFlag); err == nil {
-			return c.runRange(ctx, *sievePath, lo, hi, *block, uint32(*capFlag), *workers, *out)
+			return c.runRange(ctx, *sievePath, lo, hi, *block, uint32(*capFlag), *workers, shard, *out)
 		}
 	}
 	c.errorf("emit range: %v", err)
 	return exitUsage
 }
 
-func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, block int, capSteps uint32, workers int, out string) int {
+func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, block int, capSteps uint32, workers int, shard *emit.Shard, out string) int {
 	sh, root, err := readHeader(sievePath)
 	if err != nil {
 		c.errorf("emit range: %s: %v", sievePath, err)
@@ -64,7 +70,7 @@ func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, b
 		return exitUsage
 	}
 	journalPath := out + ".partial"
-	j, done, err := emit.OpenJournal(journalPath, p)
+	j, done, err := emit.OpenJournal(journalPath, p, shard)
 	if err != nil {
 		c.errorf("emit range: %v", err)
 		return exitUsage
@@ -90,7 +96,7 @@ func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, b
 			update(d, total, fmt.Sprintf("blocks, %.3g numbers/s", rate))
 		}
 	}
-	res, err := emit.Range(ctx, f, p, emit.RangeOptions{Workers: workers, Done: done, Block: j.Append, Progress: progress})
+	res, err := emit.Range(ctx, f, p, emit.RangeOptions{Workers: workers, Done: done, Block: j.Append, Progress: progress, Shard: shard})
 	finish()
 	if err == nil {
 		err = f.commit()
@@ -108,6 +114,11 @@ func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, b
 	}
 	if err := j.Remove(); err != nil && !errors.Is(err, os.ErrNotExist) {
 		c.errorf("emit range: %v", err)
+	}
+	if shard != nil {
+		fmt.Fprintf(c.stdout, "%s: shard %d of %d of a range certificate, %d bytes\n  shard root %v\n",
+			out, shard.I, shard.N, res.Size, res.Root)
+		return exitOK
 	}
 	fmt.Fprintf(c.stdout, "%s: range certificate, %d bytes\n  root       %v\n  claim      %s\n",
 		out, res.Size, res.Root, rangeFactsFromHeader(res.Header).summary())

@@ -28,13 +28,16 @@ const (
 )
 
 const usage = `usage:
-  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-workers N] -o FILE
-  descent emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-workers N] -o FILE
-  descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-workers N] FILE...
+  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-shard i/N] [-workers N] -o FILE
+  descent emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-shard i/N] [-workers N] -o FILE
+  descent merge -o FILE SHARD...
+  descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
+  descent check -part P -root HEX [-sieve FILE] FILE
   descent show [-json] FILE
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
 emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
+merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
 
@@ -66,6 +69,8 @@ func (c *cli) run(ctx context.Context, args []string) int {
 		return c.emit(ctx, args[1:])
 	case "check":
 		return c.check(args[1:])
+	case "merge":
+		return c.merge(args[1:])
 	case "show":
 		return c.show(args[1:])
 	case "help", "-h", "-help", "--help":

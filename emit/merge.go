@@ -1,0 +1,162 @@
+package emit
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"sort"
+
+	"descent/cert"
+)
+
+// ShardInput is one shard file for Merge.
+type ShardInput struct {
+	Name string
+	R    io.Reader
+}
+
+// ErrShards is wrapped by every reason Merge refuses a set of shards:
+// one that fails its hashes, is of another certificate, has another shard
+// count, or is missing or given twice.
+var ErrShards = errors.New("the shards do not make up one certificate")
+
+// Merge checks every shard's hashes and that together they are exactly
+// the shards 0..N-1 of one certificate, and writes that certificate to w:
+// the same bytes, and so the same root, as a run on one machine.
+func Merge(w io.WriterAt, shards []ShardInput) (*RangeResult, cert.Hash, error) {
+	if len(shards) == 0 {
+		return nil, cert.Hash{}, fmt.Errorf("%w: no shards given", ErrShards)
+	}
+	type shard struct {
+		name string
+		rd   *cert.Reader
+		h    *cert.ShardHeader
+	}
+	var all []shard
+	for _, in := range shards {
+		rd, err := cert.NewReader(in.R)
+		if err != nil {
+			return nil, cert.Hash{}, fmt.Errorf("%s: %w", in.Name, err)
+		}
+		if rd.Kind != cert.KindShard {
+			return nil, cert.Hash{}, fmt.Errorf("%w: %s is not a shard (kind %q)", ErrShards, in.Name, rd.Kind)
+		}
+		h, err := cert.ParseShardHeader(rd.Header)
+		if err != nil {
+			return nil, cert.Hash{}, fmt.Errorf("%s: %w", in.Name, err)
+		}
+		if err := rd.CheckTree(); err != nil {
+			return nil, cert.Hash{}, fmt.Errorf("%w: %s: %v", ErrShards, in.Name, err)
+		}
+		all = append(all, shard{in.Name, rd, h})
+	}
+	first := all[0]
+	for _, s := range all[1:] {
+		switch {
+		case !bytes.Equal(s.h.WholeHeader, first.h.WholeHeader):
+			return nil, cert.Hash{}, fmt.Errorf("%w: %s is a shard of another certificate than %s (another map, k, j, range or sieve)", ErrShards, s.name, first.name)
+		case s.h.Of != first.h.Of:
+			return nil, cert.Hash{}, fmt.Errorf("%w: %s is shard %d of %d, but %s is of %d", ErrShards, s.name, s.h.Index, s.h.Of, first.name, first.h.Of)
+		}
+	}
+	sort.SliceStable(all, func(i, j int) bool { return all[i].h.Index < all[j].h.Index })
+	for i, s := range all {
+		if i > 0 && s.h.Index == all[i-1].h.Index {
+			return nil, cert.Hash{}, fmt.Errorf("%w: %s and %s are both shard %d", ErrShards, all[i-1].name, s.name, s.h.Index)
+		}
+	}
+	for want := 0; want < first.h.Of; want++ {
+		if want >= len(all) || all[want].h.Index != want {
+			return nil, cert.Hash{}, fmt.Errorf("%w: shard %d of %d is missing", ErrShards, want, first.h.Of)
+		}
+	}
+
+	// next reads the records of the shards in order, each checked against
+	// the hash its shard stores.
+	type record struct {
+		rec  []byte
+		leaf cert.Hash
+	}
+	var s, i int
+	next := func() (*record, error) {
+		for s < len(all) {
+			sh := all[s]
+			rec, err := sh.rd.Next()
+			if err == io.EOF {
+				s, i = s+1, 0
+				continue
+			}
+			if err != nil {
+				return nil, fmt.Errorf("%s: %w", sh.name, err)
+			}
+			leaf := cert.LeafHash(rec)
+			if leaf != sh.rd.Levels[0][i+1] {
+				return nil, fmt.Errorf("%w: %s: record %d does not match its hash", ErrShards, sh.name, sh.h.First+i)
+			}
+			i++
+			return &record{rec, leaf}, nil
+		}
+		return nil, io.EOF
+	}
+
+	header := first.h.WholeHeader
+	var buffered []*record
+	var res *RangeResult
+	if first.h.Whole == cert.KindRange {
+		// A range's totals are the sum of its blocks: read them all first.
+		var blocks []*cert.Block
+		for {
+			r, err := next()
+			if err == io.EOF {
+				break
+			}
+			if err != nil {
+				return nil, cert.Hash{}, err
+			}
+			b, err := cert.ParseBlock(r.rec, 0)
+			if err != nil {
+				return nil, cert.Hash{}, err
+			}
+			blocks = append(blocks, b)
+			buffered = append(buffered, r)
+		}
+		h, err := cert.ParseRangeHeader(header)
+		if err != nil {
+			return nil, cert.Hash{}, err
+		}
+		h.Totals = totals(blocks)
+		if header, err = h.Marshal(); err != nil {
+			return nil, cert.Hash{}, err
+		}
+		res = &RangeResult{Header: h}
+	}
+	cw, err := cert.NewWriter(w, header)
+	if err != nil {
+		return nil, cert.Hash{}, err
+	}
+	for k := 0; ; k++ {
+		var r *record
+		if buffered != nil {
+			if k == len(buffered) {
+				break
+			}
+			r = buffered[k]
+		} else if r, err = next(); err == io.EOF {
+			break
+		} else if err != nil {
+			return nil, cert.Hash{}, err
+		}
+		if err := cw.WriteRecord(r.rec, r.leaf); err != nil {
+			return nil, cert.Hash{}, err
+		}
+	}
+	root, size, err := cw.Close()
+	if err != nil {
+		return nil, cert.Hash{}, err
+	}
+	if res != nil {
+		res.Root, res.Size = root, size
+	}
+	return res, root, nil
+}
