@@ -246,12 +246,12 @@ func summaryOf(s cert.Summary) check.DecodedSummary {
 	return d
 }
 
-func decodeRangeWithCert(rd *cert.Reader) (*check.Decoded, error) {
-	h, err := cert.ParseRangeHeader(rd.Header)
+func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decoded, error) {
+	h, err := cert.ParseRangeHeader(header)
 	if err != nil {
 		return nil, err
 	}
-	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Offsets: rd.Offs,
+	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Offsets: rd.Offs,
 		Range: &check.DecodedRange{SieveRoot: h.SieveRoot, From: h.Lo.String(), To: h.Hi.String(), BlockExp: h.E,
 			Totals: summaryOf(h.Totals), SieveK: h.K, Count: h.Blocks}}
 	for _, l := range rd.Levels {
@@ -273,8 +273,8 @@ func decodeRangeWithCert(rd *cert.Reader) (*check.Decoded, error) {
 		if err != nil {
 			return nil, err
 		}
-		if b.Index != uint32(i) {
-			return nil, fmt.Errorf("record %d says it is block %d", i, b.Index)
+		if b.Index != uint32(base+i) {
+			return nil, fmt.Errorf("record %d says it is block %d", base+i, b.Index)
 		}
 		db := check.DecodedBlock{Index: b.Index, Summary: summaryOf(b.Summary), Undecided: []string{}}
 		for _, n := range b.UndecidedNs {
@@ -298,16 +298,29 @@ func encodeWithCert(b []byte) ([]byte, error) {
 	}
 	var header []byte
 	var recs [][]byte
-	switch rd.Kind {
-	case cert.KindSieve:
-		h, err := cert.ParseSieveHeader(rd.Header)
+	kind := rd.Kind
+	if kind == cert.KindShard {
+		sh, err := cert.ParseShardHeader(rd.Header)
 		if err != nil {
 			return nil, err
 		}
-		if header, err = h.Marshal(); err != nil {
+		if header, err = sh.Marshal(); err != nil {
 			return nil, err
 		}
-		for i := 0; ; i++ {
+		kind = sh.Whole
+	}
+	switch kind {
+	case cert.KindSieve:
+		if header == nil {
+			h, err := cert.ParseSieveHeader(rd.Header)
+			if err != nil {
+				return nil, err
+			}
+			if header, err = h.Marshal(); err != nil {
+				return nil, err
+			}
+		}
+		for {
 			rec, err := rd.Next()
 			if errors.Is(err, io.EOF) {
 				break
@@ -322,12 +335,14 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			recs = append(recs, c.Marshal())
 		}
 	case cert.KindRange:
-		h, err := cert.ParseRangeHeader(rd.Header)
-		if err != nil {
-			return nil, err
-		}
-		if header, err = h.Marshal(); err != nil {
-			return nil, err
+		if header == nil {
+			h, err := cert.ParseRangeHeader(rd.Header)
+			if err != nil {
+				return nil, err
+			}
+			if header, err = h.Marshal(); err != nil {
+				return nil, err
+			}
 		}
 		for {
 			rec, err := rd.Next()
@@ -382,15 +397,30 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 	if err != nil {
 		return nil, err
 	}
-	if rd.Kind == cert.KindRange {
-		return decodeRangeWithCert(rd)
+	header, base := rd.Header, 0
+	var shard *check.SpanReport
+	kind := rd.Kind
+	if kind == cert.KindShard {
+		sh, err := cert.ParseShardHeader(rd.Header)
+		if err != nil {
+			return nil, err
+		}
+		header, base, kind = sh.WholeHeader, sh.First, sh.Whole
+		shard = &check.SpanReport{Index: sh.Index, Of: sh.Of, First: sh.First, Count: sh.Count}
 	}
-	h, err := cert.ParseSieveHeader(rd.Header)
+	if kind == cert.KindRange {
+		d, err := decodeRangeWithCert(rd, header, base)
+		if d != nil {
+			d.Header, d.Shard = rd.Header, shard
+		}
+		return d, err
+	}
+	h, err := cert.ParseSieveHeader(header)
 	if err != nil {
 		return nil, err
 	}
 	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
-		Survivors: h.Survivors, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}}
+		Survivors: h.Survivors, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}, Shard: shard}
 	for _, e := range h.Exceptions {
 		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
 		if e.Fate == cert.Cycle {
@@ -420,11 +450,11 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 		}
 		dc := check.DecodedChunk{Residue: c.Residue, Bits: c.NBits}
 		from, to := split, h.J
-		if i == 0 {
+		if base+i == 0 {
 			from, to = 0, split
 		}
 		if c.From != from || c.To != to {
-			return nil, fmt.Errorf("chunk %d spans depths %d..%d, want %d..%d", i, c.From, c.To, from, to)
+			return nil, fmt.Errorf("chunk %d spans depths %d..%d, want %d..%d", base+i, c.From, c.To, from, to)
 		}
 		if err := c.Walk(func(cl cert.Class) error {
 			dc.Leaves = append(dc.Leaves, check.DecodedClass{Residue: cl.Residue, Depth: cl.Depth, Closed: cl.Closed})

@@ -297,8 +297,8 @@ func (h *RangeHeader) validate() error {
 		return fmt.Errorf("sieve k = %d: want 1 to %d", h.K, MaxK)
 	case h.E < h.K || h.E > MaxBlockExp:
 		return fmt.Errorf("block exponent %d: want k = %d to %d", h.E, h.K, MaxBlockExp)
-	case h.Cap < 1 || h.Cap > MaxCap:
-		return fmt.Errorf("cap = %d: want 1 to %d", h.Cap, MaxCap)
+	case h.Cap <= uint32(h.K) || h.Cap > MaxCap:
+		return fmt.Errorf("cap = %d: want k+1 = %d to %d", h.Cap, h.K+1, MaxCap)
 	case h.Lo == nil || h.Hi == nil || h.Lo.Sign() <= 0 || h.Lo.Cmp(h.Hi) >= 0 || natLen(h.Hi) > MaxNatBytes:
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", h.Lo, h.Hi)
 	}

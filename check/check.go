@@ -94,8 +94,7 @@ func Check(r io.Reader, o Options) *Report {
 		if fl := sv.checkSievePart(f, base, from, upto); fl != nil {
 			return rep.fail(fl)
 		}
-		rep.Valid = true
-		return rep
+		return rep.finish()
 	}
 	tally, fl := sv.checkChunks(f, o.Workers)
 	if fl != nil {
@@ -109,6 +108,13 @@ func Check(r io.Reader, o Options) *Report {
 	}
 	rep.Valid = true
 	return rep
+}
+
+// finish marks a valid report, and a partial one as such.
+func (r *Report) finish() *Report {
+	r.Valid = true
+	r.Partial = r.Span != nil || r.Audit != nil || r.Shard != nil
+	return r
 }
 
 func (r *Report) describe(f *file) {

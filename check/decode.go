@@ -374,12 +374,13 @@ func parseShardHeader(body []byte, records int) (*shardHeader, *Failure) {
 	if int(binary.BigEndian.Uint32(w[14:])) != len(wb) {
 		return nil, malformed(preambleLen+21, "the whole's header is cut")
 	}
+	if h.of < 1 || h.of > h.wholeRecords || h.index < 0 || h.index >= h.of {
+		return nil, malformed(preambleLen+1, "shard %d of %d of a whole of %d records", h.index, h.of, h.wholeRecords)
+	}
 	// Shard i of n holds the whole's records [floor(i*R/n), floor((i+1)*R/n)).
 	first := int(int64(h.index) * int64(h.wholeRecords) / int64(h.of))
 	last := int(int64(h.index+1) * int64(h.wholeRecords) / int64(h.of))
 	switch {
-	case h.of < 1 || h.of > h.wholeRecords || h.index < 0 || h.index >= h.of:
-		return nil, malformed(preambleLen+1, "shard %d of %d of a whole of %d records", h.index, h.of, h.wholeRecords)
 	case h.first != first || h.count != last-first || h.count != records:
 		return nil, malformed(preambleLen+9, "shard %d of %d must hold records %d to %d, one per record of the file", h.index, h.of, first, last-1)
 	}

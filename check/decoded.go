@@ -21,6 +21,10 @@ type Decoded struct {
 	// A range certificate: the header's fields and the blocks.
 	Range  *DecodedRange
 	Blocks []DecodedBlock
+
+	// A shard: which shard, and which records of the whole it holds; the
+	// fields above are then the whole's.
+	Shard *SpanReport
 }
 
 // DecodedRange is the header of a range certificate.
@@ -83,13 +87,22 @@ func Decode(r io.Reader) (*Decoded, error) {
 	if fl != nil {
 		return nil, fl
 	}
+	base := 0 // the global index of the first record
+	var shard *SpanReport
+	if s := f.shard; s != nil {
+		base, shard = s.first, &SpanReport{Index: s.index, Of: s.of, First: s.first, Count: s.count}
+	}
 	if f.rng != nil {
-		return decodeRange(f)
+		d, err := decodeRange(f, base)
+		if d != nil {
+			d.Shard = shard
+		}
+		return d, err
 	}
 	rep := &Report{}
 	rep.describe(f)
 	d := &Decoded{Header: f.header, Records: f.records, Map: rep.Map, K: f.hdr.k, J: f.hdr.j, Cap: f.hdr.cap,
-		Survivors: f.hdr.survivors, ClosedAt: f.hdr.closedAt, Exceptions: rep.Exceptions, Tree: f.tree, Offsets: f.offsets}
+		Survivors: f.hdr.survivors, ClosedAt: f.hdr.closedAt, Exceptions: rep.Exceptions, Tree: f.tree, Offsets: f.offsets, Shard: shard}
 	for i := 0; ; i++ {
 		rec, fl := f.record()
 		if fl != nil {
@@ -98,7 +111,7 @@ func Decode(r io.Reader) (*Decoded, error) {
 		if rec == nil {
 			return d, nil
 		}
-		c, err := decodeChunk(rec, i, f.hdr.j, f.offsets[i])
+		c, err := decodeChunk(rec, base+i, f.hdr.j, f.offsets[i])
 		if err != nil {
 			return nil, err
 		}
@@ -148,11 +161,11 @@ func decodeChunk(rec []byte, i, j int, base int64) (DecodedChunk, *Failure) {
 	return c, nil
 }
 
-func decodeRange(f *file) (*Decoded, error) {
+func decodeRange(f *file, base int) (*Decoded, error) {
 	h := f.rng
 	d := &Decoded{Header: f.header, Records: f.records, Map: mapName(h.a, h.b), K: h.k, Cap: h.cap, Tree: f.tree, Offsets: f.offsets,
 		Range: &DecodedRange{SieveRoot: h.sieveRoot, From: h.lo.String(), To: h.hi.String(), BlockExp: h.e, Totals: decodedSummary(&h.tot),
-			SieveK: h.k, Count: f.records}}
+			SieveK: h.k, Count: h.blocks()}}
 	for i := 0; ; i++ {
 		rec, fl := f.record()
 		if fl != nil {
@@ -165,8 +178,8 @@ func decodeRange(f *file) (*Decoded, error) {
 		if fl != nil {
 			return nil, fl
 		}
-		if b.index != uint32(i) {
-			return nil, malformed(f.offsets[i], "record %d says it is block %d", i, b.index)
+		if b.index != uint32(base+i) {
+			return nil, malformed(f.offsets[i], "record %d says it is block %d", base+i, b.index)
 		}
 		db := DecodedBlock{Index: b.index, Summary: decodedSummary(&b.sum), Undecided: []string{}}
 		for _, n := range b.undecided {

@@ -185,6 +185,7 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 			return rep.fail(invalid("audit", Where{Chunk: &c, Offset: &a, Expected: hexHash(root)},
 				"record %d with its audit path does not lead to the root %s: a swapped record, one from another certificate, or an altered tree", g, hexHash(root)))
 		}
+		var blk *blockRec
 		if sv != nil {
 			if g == 0 {
 				_, fl = sv.checkChunk(0, rec, nil, a, nil, len(stubs))
@@ -192,10 +193,10 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 				_, fl = sv.checkChunk(g, rec, &stubs[g-1], a, m, 0)
 			}
 		} else {
-			var blk *blockRec
 			if blk, fl = parseBlock(rec, a); fl == nil {
 				if blk.index != uint32(g) {
 					fl = malformed(a, "record %d says it is block %d", g, blk.index)
+				} else if fl = blk.addsUp(hf.rng, g, a); fl != nil {
 				} else {
 					want, _ := s.derive(g, defaultWorkers(o.Workers))
 					if fl = s.sv.work.exceeded(); fl == nil {
@@ -207,7 +208,11 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 		if fl != nil {
 			return rep.fail(fl)
 		}
+		if blk != nil {
+			for _, n := range blk.undecided {
+				rep.Undecided = append(rep.Undecided, Num(n.String()))
+			}
+		}
 	}
-	rep.Valid = true
-	return rep
+	return rep.finish()
 }

@@ -49,7 +49,7 @@ func TestRangeAudit(t *testing.T) {
 	b := vector(t, rangeVector)
 	rep := Check(bytes.NewReader(b), Options{Sieve: sievePath("sieve-3n+1-k12.dcert"), Sample: 5, Seed: "reviewer"})
 	require.NoError(t, rep.Err())
-	require.Equal(t, &Audit{Blocks: 64, Audited: 5, PassIfWrong: rep.Audit.PassIfWrong}, rep.Audit)
+	require.Equal(t, &Audit{Blocks: 64, Audited: 5, Seed: "reviewer", PassIfWrong: rep.Audit.PassIfWrong}, rep.Audit)
 	// 10% of 64 blocks: 7 wrong; the chance that 5 draws without
 	// replacement miss all of them is C(57,5)/C(64,5).
 	p := 1.0

@@ -1,7 +1,9 @@
 package check
 
 import (
+	"crypto/rand"
 	"encoding/binary"
+	"encoding/hex"
 	"fmt"
 	"math/big"
 	"sort"
@@ -41,6 +43,9 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		if b.index != uint32(base+i) {
 			return rep.fail(malformed(f.offsets[i], "record %d says it is block %d", base+i, b.index))
 		}
+		if fl := b.addsUp(h, base+i, f.offsets[i]); fl != nil {
+			return rep.fail(fl)
+		}
 		blocks = append(blocks, b)
 	}
 	if f.shard != nil {
@@ -72,8 +77,25 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		chosen = append(chosen, i)
 	}
 	if o.Sample > 0 && o.Sample < len(chosen) {
-		chosen = sample(f.tree[len(f.tree)-1][0], o.Seed, len(blocks), o.Sample)
-		rep.Audit = audit(len(blocks), len(chosen))
+		seed := o.Seed
+		if seed == "" {
+			// A seed the writer cannot know: with none, the draw would depend
+			// on the root alone, which the writer can grind (by trying header
+			// fields) until the audit misses its wrong blocks.
+			var b [16]byte
+			if _, err := rand.Read(b[:]); err != nil {
+				return rep.fail(&Failure{Class: ErrMalformed, Reason: "malformed", Msg: "no random seed for the audit: " + err.Error()})
+			}
+			seed = hex.EncodeToString(b[:])
+		}
+		share := len(chosen)
+		var drawn []int
+		for _, k := range sample(f.tree[len(f.tree)-1][0], seed, share, o.Sample) {
+			drawn = append(drawn, chosen[k])
+		}
+		chosen = drawn
+		rep.Audit = audit(share, len(chosen))
+		rep.Audit.Seed = seed
 	}
 	for _, i := range chosen {
 		want, _ := s.derive(base+i, defaultWorkers(o.Workers))
@@ -84,8 +106,7 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 			return rep.fail(fl)
 		}
 	}
-	rep.Valid = true
-	return rep
+	return rep.finish()
 }
 
 // rangeSieve checks the sieve certificate a range rests on: given, valid,
@@ -198,6 +219,28 @@ func checkTotals(h *rangeHeader, blocks []*blockRec) *Failure {
 	sortCycles(want.cycles)
 	if d := diffSummary(&want, &h.tot); d != "" {
 		return invalid("count", Where{Claim: "header totals"}, "the header's totals differ from the sum of its blocks: %s", d)
+	}
+	return nil
+}
+
+// addsUp checks that a block's five counts add up to the numbers in it.
+func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
+	x0 := new(big.Int).Add(h.first, big.NewInt(int64(i)))
+	x0.Lsh(x0, uint(h.e))
+	lo, hi := new(big.Int).Set(x0), new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
+	if lo.Cmp(h.lo) < 0 {
+		lo.Set(h.lo)
+	}
+	if hi.Cmp(h.hi) > 0 {
+		hi.Set(h.hi)
+	}
+	size := hi.Sub(hi, lo)
+	sum := new(big.Int)
+	for _, c := range b.sum.counts {
+		sum.Add(sum, c)
+	}
+	if sum.Cmp(size) != 0 {
+		return malformed(at, "block %d counts %v numbers; it has %v", i, sum, size)
 	}
 	return nil
 }

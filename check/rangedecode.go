@@ -45,6 +45,13 @@ type rangeHeader struct {
 	tot       summary
 }
 
+// blocks is the number of blocks of the range.
+func (h *rangeHeader) blocks() int {
+	last := new(big.Int).Sub(h.hi, big.NewInt(1))
+	last.Rsh(last, uint(h.e)).Sub(last, h.first)
+	return int(last.Int64()) + 1
+}
+
 type blockRec struct {
 	index     uint32
 	sum       summary
@@ -149,8 +156,8 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 		return nil, malformed(at+4, "constant %d: the format needs an odd b > -a", h.b)
 	case h.k < 1 || h.k > maxK || h.e < h.k || h.e > maxBlockExp:
 		return nil, malformed(at+40, "sieve k = %d and block exponent %d: the format needs 1 <= k <= e <= %d", h.k, h.e, maxBlockExp)
-	case h.cap < 1 || h.cap > maxCap:
-		return nil, malformed(at+42, "step cap %d: the format allows 1 to %d", h.cap, maxCap)
+	case h.cap <= uint32(h.k) || h.cap > maxCap:
+		return nil, malformed(at+42, "step cap %d: the format allows k+1 = %d to %d", h.cap, h.k+1, maxCap)
 	case h.lo.Cmp(h.hi) >= 0:
 		return nil, malformed(at+46, "the range [%v, %v) is empty", h.lo, h.hi)
 	}

@@ -6,6 +6,7 @@ import (
 	"runtime"
 	"sort"
 	"sync"
+	"sync/atomic"
 )
 
 // The checker's own derivation of a block of a range certificate
@@ -262,13 +263,16 @@ func (t *tallies) note(off uint64, r outcome, rule int) {
 		}
 	default:
 		t.counts[4]++
-		t.undec = append(t.undec, off)
+		if len(t.undec) <= maxList {
+			t.undec = append(t.undec, off)
+		}
 	}
 }
 
 // part is the work on one block restricted to the offsets [from, to).
 type part struct {
 	s        *searcher
+	stop     *atomic.Bool // set once the block has more undecided numbers than a record can list
 	x0       *big.Int
 	x0u      uint64 // x0, when the whole block lies below 2^64 (fast)
 	fast     bool
@@ -326,6 +330,12 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 // T^k(n) = a^s*q + T^k(res).
 func (p *part) survivor(res uint64, odd int, tk wide) {
 	s := p.s
+	if p.t.counts[4] > maxList {
+		p.stop.Store(true)
+	}
+	if p.stop.Load() {
+		return
+	}
 	n, off := p.inClass(res, s.k)
 	if p.fast && tk.big == nil && s.pow[odd].BitLen() <= 64 {
 		m := s.pow[odd].Uint64()
@@ -378,13 +388,14 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 		split = max(from, min(to, above.Uint64()+1))
 	}
 
-	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies()}}
+	stop := new(atomic.Bool)
+	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(), stop: stop}}
 	small := parts[0]
-	for off := small.from; off < small.to; off++ {
+	for off := small.from; off < small.to && small.t.counts[4] <= maxList; off++ {
 		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
 		small.t.note(off, s.decide(n, fromBig(n), 0), 2)
 	}
-	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies()}
+	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), stop: stop}
 	parts = append(parts, top)
 	top.classes(0, 0, wide{}, 0, s.d)
 	var wg sync.WaitGroup
@@ -392,7 +403,7 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
 	fast := end.BitLen() <= 64
 	for _, res := range s.stubs {
-		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), fast: fast}
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), fast: fast, stop: stop}
 		if fast {
 			p.x0u = x0.Uint64()
 		}

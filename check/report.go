@@ -138,6 +138,7 @@ type Report struct {
 	Shard           *SpanReport // a shard file: which records of the whole it holds
 	Span            *SpanReport // a share checked with Options.Span
 	BytesRead       int64       // a part check: the bytes of the file it read
+	Partial         bool        // only part of the claims were re-derived (-shard, -part, -sample)
 
 	Reason string
 	Error  string
@@ -197,6 +198,7 @@ type CycleReport struct {
 type Audit struct {
 	Blocks      int          `json:"blocks"`
 	Audited     int          `json:"audited"`
+	Seed        string       `json:"seed"` // the reader's seed (chosen at random if none was given): repeat the audit with it
 	PassIfWrong []PassChance `json:"pass_if_wrong"`
 }
 
@@ -244,9 +246,10 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 			Shard           *SpanReport    `json:"shard,omitempty"`
 			Span            *SpanReport    `json:"span,omitempty"`
 			BytesRead       int64          `json:"bytes_read,omitempty"`
+			Partial         bool           `json:"partial,omitempty"`
 			failure
 		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, orEmpty(r.Records), r.MaxStoppingTime,
-			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, r.Shard, r.Span, r.BytesRead, f})
+			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, r.Shard, r.Span, r.BytesRead, r.Partial, f})
 	}
 	return json.Marshal(struct {
 		common
@@ -260,8 +263,9 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		Shard      *SpanReport       `json:"shard,omitempty"`
 		Span       *SpanReport       `json:"span,omitempty"`
 		BytesRead  int64             `json:"bytes_read,omitempty"`
+		Partial    bool              `json:"partial,omitempty"`
 		failure
-	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, f})
+	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, r.Partial, f})
 }
 
 func orEmpty[T any](s []T) []T {

@@ -1,6 +1,9 @@
 package emit
 
-import "math/bits"
+import (
+	"math/big"
+	"math/bits"
+)
 
 // The search's inner loop takes steps in bunches, with a small sieve on
 // the low bits of the value. For x = 2^i*q + r, T^i(x) = a^s*q + T^i(r). Let
@@ -12,59 +15,59 @@ import "math/bits"
 
 const jumpBits = 12
 
-// jumpLimit bounds the high word of x in the table loop: a lookup that does
-// not close multiplies by at most a^12 / 2^12 (2^7.1 for a = 3, 2^35 for
-// a = 37), so x < 2^118 leaves room for every map the table serves (a^12
-// < 2^64) below 2^128 after the step.
-const jumpLimit = 1 << 54
+// jumpEntry is one table entry: d = T^i1(x mod 2^i1), a^s, and in meta
+// i1 (bits 0..7) and bit 8 set when the parity vector closes at i1, so that
+// a drop is possible there.
+type jumpEntry struct{ d, mul, meta uint64 }
 
-// jumpEntry is one table entry: d = T^i1(x mod 2^i1) in bits 0..39, i1 in
-// bits 48..55, bit 56 set when the parity vector closes at i1 (a drop is
-// possible there), and a^s beside it, so that one lookup gives both
-// without a second dependent load. The table is 64 KiB.
-type jumpEntry struct{ w, mul uint64 }
+func (e jumpEntry) steps() uint { return uint(e.meta & 0xff) }
+func (e jumpEntry) shut() bool  { return e.meta>>8&1 == 1 }
 
-func (e jumpEntry) d() uint64   { return e.w & (1<<40 - 1) }
-func (e jumpEntry) steps() uint { return uint(e.w >> 48 & 0xff) }
-func (e jumpEntry) shut() bool  { return e.w>>56&1 == 1 }
-
-// jumpTable builds the table for a map with b > 0 whose a^m fits 64 bits,
-// or returns nil.
-func (r *rules) jumpTable() []jumpEntry {
-	if r.m.B <= 0 || r.a > 37 {
-		return nil // b < 0: prefixes have c < 0; a > 37: a^12 passes 2^63
+// jumpTable builds the table for a map with b > 0, or returns nil when an
+// entry would not fit 64 bits exactly (then the search steps one at a
+// time). It also returns the bound on the high word of x below which a
+// lookup stays within 128 bits: the product a^s*(x >> i1) is below
+// x*a^12/2, so x must stay below 2^(129 - bits(a^12)).
+func (r *rules) jumpTable() ([]jumpEntry, uint64) {
+	if r.m.B <= 0 {
+		return nil, 0 // b < 0: prefixes have c < 0, and a drop can come early
 	}
+	top := new(big.Int).Exp(r.bigA, big.NewInt(jumpBits), nil)
+	if top.BitLen() > 63 {
+		return nil, 0
+	}
+	limit := uint64(1) << (65 - top.BitLen() - 1)
 	t := make([]jumpEntry, 1<<jumpBits)
 	for l := range t {
-		x, s, steps, shut := uint64(l), 0, jumpBits, uint64(0)
+		x, s, steps, shut := new(big.Int).SetInt64(int64(l)), 0, jumpBits, uint64(0)
 		for i := 1; i <= jumpBits; i++ {
-			if x&1 == 1 {
-				x = (r.a*x + uint64(r.m.B)) >> 1
+			if r.step(x) {
 				s++
-			} else {
-				x >>= 1
 			}
-			if bits.Len64(pow64(r.a, s)) <= i { // a^s < 2^i
+			if new(big.Int).Exp(r.bigA, big.NewInt(int64(s)), nil).BitLen() <= i { // a^s < 2^i
 				steps, shut = i, 1
 				break
 			}
 		}
 		// x is T^i1(l); subtract the part that comes from the bits of l
-		// above i1, a^s times l >> i1, to leave T^i1(l mod 2^i1), which is
-		// below 2^i1 * (a+1)^i1 / 2^i1 < 2^40 for a <= 37.
-		d := x - pow64(r.a, s)*(uint64(l)>>steps)
-		t[l] = jumpEntry{w: d | uint64(steps)<<48 | shut<<56, mul: pow64(r.a, s)}
+		// above i1, a^s times l >> i1, to leave T^i1(l mod 2^i1).
+		mul := new(big.Int).Exp(r.bigA, big.NewInt(int64(s)), nil)
+		d := x.Sub(x, new(big.Int).Mul(mul, big.NewInt(int64(l>>steps))))
+		if d.Sign() < 0 || d.BitLen() > 64 || mul.BitLen() > 64 {
+			return nil, 0
+		}
+		t[l] = jumpEntry{d: d.Uint64(), mul: mul.Uint64(), meta: uint64(steps) | shut<<8}
 	}
-	return t
+	return t, limit
 }
 
 // searchJump is the inner loop of the search with the table: x = T^i(n),
 // exact in 128 bits. It returns the stopping time, or 0 when the value
 // nears 2^128 or the steps pass the cap, for the general path to finish.
-func searchJump(tab []jumpEntry, n uint64, hi, lo uint64, i uint32, cap uint32) uint32 {
+func searchJump(tab []jumpEntry, limit uint64, n uint64, hi, lo uint64, i uint32, cap uint32) uint32 {
 	steps := uint64(i)
 	for steps <= uint64(cap) {
-		if hi >= jumpLimit {
+		if hi >= limit {
 			return 0
 		}
 		e := tab[lo&(1<<jumpBits-1)]
@@ -73,7 +76,7 @@ func searchJump(tab []jumpEntry, n uint64, hi, lo uint64, i uint32, cap uint32) 
 		ph, pl := bits.Mul64(qlo, m)
 		ph += qhi * m
 		var c uint64
-		lo, c = bits.Add64(pl, e.d(), 0)
+		lo, c = bits.Add64(pl, e.d, 0)
 		hi = ph + c
 		steps += uint64(sh)
 		if e.shut() && hi == 0 && lo < n {
@@ -84,14 +87,6 @@ func searchJump(tab []jumpEntry, n uint64, hi, lo uint64, i uint32, cap uint32) 
 		}
 	}
 	return 0
-}
-
-func pow64(a uint64, s int) uint64 {
-	p := uint64(1)
-	for range s {
-		p *= a
-	}
-	return p
 }
 
 // jumpJob is a number n with x = T^i(n) for the two-lane search; sigma
@@ -105,7 +100,7 @@ type jumpJob struct {
 // number are a chain of dependent loads and multiplications, and two
 // independent chains overlap. It has no closures, so that both lanes stay
 // in registers; the two lanes are written out twice on purpose.
-func searchJump2(tab []jumpEntry, jobs []jumpJob, cap uint32) {
+func searchJump2(tab []jumpEntry, jumpLimit uint64, jobs []jumpJob, cap uint32) {
 	if len(jobs) == 0 {
 		return
 	}
@@ -127,7 +122,7 @@ func searchJump2(tab []jumpEntry, jobs []jumpJob, cap uint32) {
 			ph, pl := bits.Mul64(la>>sh|ha<<(64-sh), e.mul)
 			ph += ha >> sh * e.mul
 			var c uint64
-			la, c = bits.Add64(pl, e.d(), 0)
+			la, c = bits.Add64(pl, e.d, 0)
 			ha = ph + c
 			sa += uint64(sh)
 			if (e.shut() && ha == 0 && la < na) || sa > limit || ha >= jumpLimit {
@@ -147,7 +142,7 @@ func searchJump2(tab []jumpEntry, jobs []jumpJob, cap uint32) {
 			ph, pl := bits.Mul64(lb>>sh|hb<<(64-sh), e.mul)
 			ph += hb >> sh * e.mul
 			var c uint64
-			lb, c = bits.Add64(pl, e.d(), 0)
+			lb, c = bits.Add64(pl, e.d, 0)
 			hb = ph + c
 			sb += uint64(sh)
 			if (e.shut() && hb == 0 && lb < nb) || sb > limit || hb >= jumpLimit {

@@ -354,7 +354,7 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 			if ok {
 				x, ok = x.add(tk.u)
 			}
-			if !ok || x.hi >= jumpLimit {
+			if !ok || x.hi >= r.jumpLim {
 				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), limit), cSearch)
 				continue
 			}
@@ -389,7 +389,7 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 // few the lanes hand back (cap or value limit) take the general path.
 func (u *unit) flush() {
 	r, limit := u.g.r, u.g.p.Cap
-	searchJump2(r.jump, u.jobs, limit)
+	searchJump2(r.jump, r.jumpLim, u.jobs, limit)
 	for i := range u.jobs {
 		j := &u.jobs[i]
 		o := outcome{fate: cert.Descends, sigma: j.sigma}
@@ -472,7 +472,9 @@ func (a *acc) note(off uint64, o outcome, rule int) {
 		}
 	default:
 		a.count[cUndecided]++
-		a.undec = append(a.undec, off)
+		if len(a.undec) <= cert.MaxUndecided { // one more than a block may list: enough to refuse it
+			a.undec = append(a.undec, off)
+		}
 	}
 }
 
@@ -551,9 +553,9 @@ func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
 	}
 	sort.Slice(s.Cycles, func(i, j int) bool { return s.Cycles[i].Min.Cmp(s.Cycles[j].Min) < 0 })
 	sort.Slice(total.undec, func(i, j int) bool { return total.undec[i] < total.undec[j] })
-	if len(total.undec) > cert.MaxUndecided {
-		return nil, fmt.Errorf("block %d has %d undecided numbers, more than a block may list (%d): raise -cap or narrow the range",
-			index, len(total.undec), cert.MaxUndecided)
+	if total.count[cUndecided] > cert.MaxUndecided {
+		return nil, fmt.Errorf("block %d has %d undecided numbers, more than a block may list (%d): raise -cap or use smaller blocks",
+			index, total.count[cUndecided], cert.MaxUndecided)
 	}
 	for _, off := range total.undec {
 		b.UndecidedNs = append(b.UndecidedNs, abs(off))

@@ -243,3 +243,70 @@ func TestSmallBound(t *testing.T) {
 		}
 	}
 }
+
+// referenceFates is reference with a cap: numbers that do not drop within
+// cap steps are decided by the fate rule, with a plain table of the values
+// seen (SPEC.md, "Fates").
+func referenceFates(m cert.Map, k int, lo, hi *big.Int, capSteps int) (sieve, search, cycle, undecided int64, sum *big.Int) {
+	a, b := big.NewInt(int64(m.A)), big.NewInt(int64(m.B))
+	sum = new(big.Int)
+	step := func(x *big.Int) {
+		if x.Bit(0) == 1 {
+			x.Mul(x, a).Add(x, b).Rsh(x, 1)
+		} else {
+			x.Rsh(x, 1)
+		}
+	}
+	for n := new(big.Int).Set(lo); n.Cmp(hi) < 0; n.Add(n, big.NewInt(1)) {
+		x := new(big.Int).Set(n)
+		seen := map[string]bool{x.String(): true}
+		repeat, dropped := false, 0
+		for i := 1; i <= capSteps; i++ {
+			step(x)
+			if x.Cmp(n) < 0 {
+				dropped = i
+				break
+			}
+			key := x.String()
+			repeat = repeat || seen[key]
+			seen[key] = true
+		}
+		switch {
+		case dropped > 0 && dropped <= k:
+			sieve++
+			sum.Add(sum, big.NewInt(int64(dropped)))
+		case dropped > 0:
+			search++
+			sum.Add(sum, big.NewInt(int64(dropped)))
+		case repeat:
+			cycle++
+		default:
+			undecided++
+		}
+	}
+	return
+}
+
+func TestLargeMultipliersAgainstBigReference(t *testing.T) {
+	// Maps whose multiplier makes a^12 large: the 12-bit table must give
+	// way to exact steps, never lose bits.
+	for _, c := range []struct {
+		m  cert.Map
+		lo *big.Int
+	}{
+		{cert.Map{A: 13, B: 1}, pow2(40)},
+		{cert.Map{A: 19, B: 1}, pow2(40)},
+		{cert.Map{A: 25, B: 1}, pow2(50)},
+		{cert.Map{A: 27, B: 1}, pow2(40)},
+		{cert.Map{A: 37, B: 1}, pow2(40)},
+		{cert.Map{A: 5, B: 3}, pow2(60)},
+	} {
+		hi := new(big.Int).Add(c.lo, big.NewInt(1<<12))
+		res, _ := emitRange(t, c.m, 10, c.lo, hi, 12, 300, RangeOptions{})
+		tot := res.Header.Totals
+		sieve, search, cycle, undecided, sum := referenceFates(c.m, 10, c.lo, hi, 300)
+		require.Equal(t, []int64{sieve, search, cycle, undecided},
+			[]int64{tot.Sieve.Int64(), tot.Search.Int64(), tot.Cycle.Int64(), tot.Undecided.Int64()}, "%v from %v", c.m, c.lo)
+		require.Zero(t, sum.Cmp(tot.SigmaSum), "%v: sum of stopping times", c.m)
+	}
+}

@@ -28,6 +28,7 @@ type rules struct {
 	powFits []bool
 	limHi   uint64 // while x>>64 < limHi, a step of the search fits 128 bits
 	jump    []jumpEntry
+	jumpLim uint64 // the table serves values whose high word is below it
 	bigA    *big.Int
 	bigB    *big.Int
 	limit   int    // cap on the exception search, in numbers tested
@@ -60,7 +61,7 @@ func newRules(m cert.Map, k, j int) (*rules, error) {
 		r.powU, r.powFits = append(r.powU, u), append(r.powFits, ok)
 		p.Mul(p, r.bigA)
 	}
-	r.jump = r.jumpTable()
+	r.jump, r.jumpLim = r.jumpTable()
 	return r, nil
 }
 

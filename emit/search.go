@@ -174,8 +174,8 @@ func (r *rules) iterate(n *big.Int, cap uint32) outcome {
 // made from the parity selects the second part, so the loop has no branch
 // on the parity, which is as unpredictable as a coin.
 func (r *rules) searchFrom(n uint64, x u128, i uint32, cap uint32) outcome {
-	if r.jump != nil && x.hi < jumpLimit {
-		if sigma := searchJump(r.jump, n, x.hi, x.lo, i, cap); sigma > 0 {
+	if r.jump != nil && x.hi < r.jumpLim {
+		if sigma := searchJump(r.jump, r.jumpLim, n, x.hi, x.lo, i, cap); sigma > 0 {
 			return outcome{fate: cert.Descends, sigma: sigma}
 		}
 	}

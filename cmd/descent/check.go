@@ -118,9 +118,10 @@ func (c *cli) printReport(rep *check.Report) {
 		fmt.Fprintf(c.stdout, "%s: %s\n  root       %s\n  sieve      %s\n  claim      %s\n",
 			rep.File, verdict, rep.Root, rep.SieveRoot, rangeFactsFromReport(rep).summary())
 		if a := rep.Audit; a != nil {
+			fmt.Fprintf(c.stdout, "  seed       %s (repeat this audit with -seed %s)\n", a.Seed, a.Seed)
 			for _, p := range a.PassIfWrong {
-				fmt.Fprintf(c.stdout, "  audit      if %g%% of the blocks (%d) were wrong, this audit would pass with probability %.3g\n",
-					100*p.Share, p.WrongBlocks, p.Pass)
+				fmt.Fprintf(c.stdout, "  audit      if %d of the %d blocks (%.3g%%) were wrong, this audit would pass with probability %.3g\n",
+					p.WrongBlocks, a.Blocks, 100*float64(p.WrongBlocks)/float64(a.Blocks), p.Pass)
 			}
 		}
 		return

@@ -397,6 +397,16 @@ func TestRangeForgeries(t *testing.T) {
 		c := openRange(t, b)
 		c.h.Hi.Sub(c.h.Hi, big.NewInt(1))
 		code, rep := checkRangeJSON(t, c.seal(t), sieve)
+		// The last block's counts no longer add up to its numbers.
+		require.Equal(t, exitUsage, code)
+		require.Equal(t, "malformed", rep["reason"])
+		require.Contains(t, rep["error"], "numbers; it has")
+
+		// With the counts adjusted too, the re-derivation disagrees.
+		last := c.blocks[len(c.blocks)-1]
+		last.Sieve.Sub(last.Sieve, big.NewInt(1))
+		c.h.Totals.Sieve.Sub(c.h.Totals.Sieve, big.NewInt(1))
+		code, rep = checkRangeJSON(t, c.seal(t), sieve)
 		require.Equal(t, exitInvalid, code)
 		require.Equal(t, "block", rep["reason"])
 	})
@@ -493,4 +503,39 @@ func TestHugeCapIsBeyondLimitsNotEndless(t *testing.T) {
 	code, rep := checkJSON(t, c.seal(t))
 	require.Equal(t, exitUsage, code, "%v", rep)
 	require.Equal(t, "limits", rep["reason"])
+}
+
+func TestHostileRangeBlockIsRefusedInBoundedMemory(t *testing.T) {
+	// A 5n+1 block of 2^24 numbers, all claimed to drop by the sieve, with
+	// a cap of 20: in truth most of them are undecided, far more than a
+	// block may list. The checker must stop deriving once it has more than
+	// a record can hold, not collect millions.
+	dir := t.TempDir()
+	sieve := filepath.Join(dir, "s.dcert")
+	require.Equal(t, exitOK, first(runCLI("emit", "sieve", "-k", "8", "-map", "5n+1", "-o", sieve)))
+	_, root, err := readHeader(sieve)
+	require.NoError(t, err)
+	z := func() *big.Int { return new(big.Int) }
+	lo := new(big.Int).Lsh(big.NewInt(1), 24)
+	h := &cert.RangeHeader{Map: cert.Map{A: 5, B: 1}, SieveRoot: root, K: 8, E: 24, Cap: 20, Lo: lo,
+		Hi: new(big.Int).Lsh(big.NewInt(1), 25), Blocks: 1,
+		Totals: cert.Summary{Sieve: new(big.Int).Set(lo), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z()}}
+	blk := &cert.Block{Summary: h.Totals}
+	c := &rangeCut{h: h, blocks: []*cert.Block{blk}}
+	b := c.seal(t)
+	var before, after runtime.MemStats
+	runtime.GC()
+	runtime.ReadMemStats(&before)
+	code, rep := checkRangeJSON(t, b, sieve)
+	runtime.ReadMemStats(&after)
+	require.Equal(t, exitInvalid, code, "%v", rep)
+	require.Equal(t, "block", rep["reason"])
+	require.Less(t, after.HeapInuse, before.HeapInuse+uint64(64<<20), "heap grew from %d to %d", before.HeapInuse, after.HeapInuse)
+
+	// Counts that do not add up to the block's size are malformed.
+	blk.Sieve = big.NewInt(1)
+	h.Totals.Sieve = big.NewInt(1)
+	code, rep = checkRangeJSON(t, c.seal(t), sieve)
+	require.Equal(t, exitUsage, code)
+	require.Contains(t, rep["error"], "counts 1 numbers; it has 16777216")
 }

@@ -10,10 +10,34 @@ import (
 
 // atomicFile is written under a temporary name beside its target and
 // renamed onto the target only once the work succeeded, so a failed or
-// interrupted run never leaves a file at the target path.
+// interrupted run never leaves a file at the target path. The first bytes
+// (a certificate's magic) are held back until the rest is on disk, so that
+// a temporary file left by a kill is no certificate at all.
 type atomicFile struct {
 	*os.File
 	target string
+	head   []byte // the bytes held back from offset 0
+}
+
+const heldBack = 8
+
+// WriteAt writes p at off, keeping back what falls in the first bytes.
+func (f *atomicFile) WriteAt(p []byte, off int64) (int, error) {
+	if off < heldBack {
+		n := min(int64(len(p)), heldBack-off)
+		if need := int(off + n); len(f.head) < need {
+			f.head = append(f.head, make([]byte, need-len(f.head))...)
+		}
+		copy(f.head[off:], p[:n])
+		if _, err := f.File.WriteAt(make([]byte, n), off); err != nil {
+			return 0, err
+		}
+		if rest, err := f.File.WriteAt(p[n:], off+n); err != nil {
+			return int(n) + rest, err
+		}
+		return len(p), nil
+	}
+	return f.File.WriteAt(p, off)
 }
 
 func createAtomic(target string) (*atomicFile, error) {
@@ -28,8 +52,17 @@ func createAtomic(target string) (*atomicFile, error) {
 	return &atomicFile{File: f, target: target}, nil
 }
 
-// commit makes the file durable and moves it onto the target.
+// commit makes the file durable, then writes the bytes held back, and
+// moves it onto the target.
 func (f *atomicFile) commit() error {
+	if err := f.Sync(); err != nil {
+		f.abort()
+		return err
+	}
+	if _, err := f.File.WriteAt(f.head, 0); err != nil {
+		f.abort()
+		return err
+	}
 	if err := f.Sync(); err != nil {
 		f.abort()
 		return err

@@ -45,8 +45,11 @@ func (c *cli) show(args []string) int {
 		return exitUsage
 	}
 	path := fs.Arg(0)
-	if kind, err := peekKind(path); err == nil && kind == cert.KindRange {
+	switch kind, err := peekKind(path); {
+	case err == nil && kind == cert.KindRange:
 		return c.showRange(path, *asJSON)
+	case err == nil && kind == cert.KindShard:
+		return c.showShard(path, *asJSON)
 	}
 	h, root, err := readHeader(path)
 	if err != nil {
@@ -310,4 +313,51 @@ func orEmpty[T any](s []T) []T {
 		return []T{}
 	}
 	return s
+}
+
+// showShard says what a shard is and which certificate it is part of.
+func (c *cli) showShard(path string, asJSON bool) int {
+	file, err := os.Open(path)
+	if err != nil {
+		c.errorf("show: %v", err)
+		return exitUsage
+	}
+	defer file.Close()
+	rd, err := cert.NewReader(file)
+	var h *cert.ShardHeader
+	if err == nil {
+		h, err = cert.ParseShardHeader(rd.Header)
+	}
+	if err == nil {
+		err = rd.CheckTree()
+	}
+	if err != nil {
+		c.errorf("show: %s: %v", path, err)
+		if errors.Is(err, cert.ErrHashMismatch) {
+			return exitInvalid
+		}
+		return exitUsage
+	}
+	kind := "sieve"
+	summary := ""
+	if h.Whole == cert.KindRange {
+		kind = "range"
+		if rh, err := cert.ParseRangeHeader(h.WholeHeader); err == nil {
+			summary = fmt.Sprintf("%s over [%v, %v), blocks of 2^%d, sieve %v", rh.Map, rh.Lo, rh.Hi, rh.E, rh.SieveRoot)
+		}
+	} else if sh, err := cert.ParseSieveHeader(h.WholeHeader); err == nil {
+		summary = factsFromHeader(sh).summary()
+	}
+	if asJSON {
+		b, _ := json.MarshalIndent(map[string]any{"file": path, "kind": kind + " shard", "shard_root": rd.Root().String(),
+			"index": h.Index, "of": h.Of, "first": h.First, "count": h.Count, "whole": summary, "verified": false}, "", "  ")
+		fmt.Fprintf(c.stdout, "%s\n", b)
+		return exitOK
+	}
+	fmt.Fprintf(c.stdout, "%s: shard %d of %d of a %s certificate\n\n", path, h.Index, h.Of, kind)
+	fmt.Fprintf(c.stdout, "  shard root  %v (this file; the whole's root exists once the shards are merged)\n", rd.Root())
+	fmt.Fprintf(c.stdout, "  records     %d to %d of the whole\n", h.First, h.First+h.Count-1)
+	fmt.Fprintf(c.stdout, "  the whole   %s\n\n", summary)
+	fmt.Fprintf(c.stdout, "A shard proves only the claims of its own records. 'descent merge' puts the shards\ntogether; 'descent check %s' re-derives this one alone.\n", path)
+	return exitOK
 }

@@ -36,6 +36,8 @@ import (
 //	decoder: ok | malformed
 //	check: valid | malformed | hash | claim | limits
 //	show: ok | malformed | hash
+//	merge: ok | refused | malformed   (merged with the partner shard, if any)
+//	partner: <the good shard this one is merged with, for shards>
 //	flip: <base vector> <byte> <bit>   (only for single-bit flips)
 //
 //	<the certificate, base64; empty for a flip, which is its base with
@@ -54,14 +56,15 @@ const vectorDir = "../../testdata/vectors"
 type vector struct {
 	name, description, sieve string
 	decoder, check, show     string
+	merge, partner           string
 	flip                     string // "base byte bit", for a single-bit flip
 	data                     []byte
 }
 
 func (v vector) encode() []byte {
 	var b bytes.Buffer
-	fmt.Fprintf(&b, "descent test vector\ndescription: %s\nsieve: %s\ndecoder: %s\ncheck: %s\nshow: %s\n",
-		v.description, v.sieve, v.decoder, v.check, v.show)
+	fmt.Fprintf(&b, "descent test vector\ndescription: %s\nsieve: %s\ndecoder: %s\ncheck: %s\nshow: %s\nmerge: %s\npartner: %s\n",
+		v.description, v.sieve, v.decoder, v.check, v.show, v.merge, v.partner)
 	if v.flip != "" {
 		fmt.Fprintf(&b, "flip: %s\n\n", v.flip)
 		return b.Bytes()
@@ -97,6 +100,10 @@ func parseVector(name string, raw []byte) (vector, error) {
 			v.show = val
 		case "flip":
 			v.flip = val
+		case "merge":
+			v.merge = val
+		case "partner":
+			v.partner = val
 		}
 	}
 	data, err := base64.StdEncoding.DecodeString(strings.ReplaceAll(body, "\n", ""))
@@ -117,14 +124,23 @@ func classify(b []byte) (decoder, hashes string) {
 		return "malformed", "malformed"
 	}
 	var parse func(rec []byte, i int, base int64) error
-	switch rd.Kind {
+	kind, header, first := rd.Kind, rd.Header, 0
+	if kind == cert.KindShard {
+		sh, err := cert.ParseShardHeader(rd.Header)
+		if err != nil {
+			return "malformed", "malformed"
+		}
+		kind, header, first = sh.Whole, sh.WholeHeader, sh.First
+	}
+	switch kind {
 	case cert.KindSieve:
-		h, err := cert.ParseSieveHeader(rd.Header)
+		h, err := cert.ParseSieveHeader(header)
 		if err != nil {
 			return "malformed", "malformed"
 		}
 		d := cert.SplitDepth(h.J)
 		parse = func(rec []byte, i int, base int64) error {
+			i += first
 			c, err := cert.ParseChunk(rec, base)
 			if err != nil {
 				return err
@@ -139,12 +155,12 @@ func classify(b []byte) (decoder, hashes string) {
 			return c.Walk(func(cert.Class) error { return nil })
 		}
 	case cert.KindRange:
-		if _, err := cert.ParseRangeHeader(rd.Header); err != nil {
+		if _, err := cert.ParseRangeHeader(header); err != nil {
 			return "malformed", "malformed"
 		}
 		parse = func(rec []byte, i int, base int64) error {
 			blk, err := cert.ParseBlock(rec, base)
-			if err == nil && blk.Index != uint32(i) {
+			if err == nil && blk.Index != uint32(first+i) {
 				err = cert.ErrMalformed
 			}
 			return err
@@ -192,6 +208,15 @@ func showOutcome(b []byte) string {
 	if err != nil {
 		return "malformed"
 	}
+	if rd.Kind == cert.KindShard {
+		if _, err := cert.ParseShardHeader(rd.Header); err != nil {
+			return "malformed"
+		}
+		if rd.CheckTree() != nil {
+			return "hash"
+		}
+		return "ok"
+	}
 	if rd.Kind == cert.KindSieve {
 		if _, err := cert.ParseSieveHeader(rd.Header); err != nil {
 			return "malformed"
@@ -224,12 +249,35 @@ func showOutcome(b []byte) string {
 	}
 }
 
+// mergeOutcome is what merge must do with a vector (and its partner
+// shard): refuse a file that is not a shard of the partner's certificate or
+// whose hashes fail, report a malformed one, and merge the rest, whose
+// claims are the checker's to judge.
+func mergeOutcome(data []byte, shard bool, decoder, hashes string) string {
+	rd, err := cert.NewReader(bytes.NewReader(data))
+	if err != nil {
+		return "malformed"
+	}
+	switch {
+	case rd.Kind != cert.KindShard || !shard:
+		return "refused"
+	case hashes == "malformed":
+		return "malformed"
+	case hashes == "hash":
+		return "refused"
+	}
+	if _, err := cert.ParseShardHeader(rd.Header); err != nil {
+		return "malformed"
+	}
+	return "ok"
+}
+
 // --- the generator -------------------------------------------------------
 
 type good struct {
-	name, sieve string
-	flips       bool // every single-bit flip becomes a vector
-	data        []byte
+	name, sieve, partner string
+	flips                bool // every single-bit flip becomes a vector
+	data                 []byte
 }
 
 func emitGood(t *testing.T, dir string) []good {
@@ -244,7 +292,14 @@ func emitGood(t *testing.T, dir string) []good {
 	s4 := mk("sieve-3n+1-k4", "emit", "sieve", "-k", "4")
 	s6 := mk("sieve-5n+1-k6", "emit", "sieve", "-k", "6", "-map", "5n+1", "-cap", "200")
 	r := mk("range-3n+1-k4", "emit", "range", "-sieve", filepath.Join(dir, "sieve-3n+1-k4"), "-from", "1", "-to", "30", "-block", "5")
-	return []good{{"sieve-3n+1-k4", "", true, s4}, {"sieve-5n+1-k6", "", false, s6}, {"range-3n+1-k4-to-30", "sieve-3n+1-k4", true, r}}
+	sh0 := mk("shard0", "emit", "sieve", "-k", "8", "-shard", "0/2")
+	sh1 := mk("shard1", "emit", "sieve", "-k", "8", "-shard", "1/2")
+	return []good{
+		{"sieve-3n+1-k4", "", "", true, s4}, {"sieve-5n+1-k6", "", "", false, s6},
+		{"range-3n+1-k4-to-30", "sieve-3n+1-k4", "", true, r},
+		{"shard-0of2-3n+1-k8", "", "shard-1of2-3n+1-k8-0000.vec", false, sh0},
+		{"shard-1of2-3n+1-k8", "", "shard-0of2-3n+1-k8-0000.vec", true, sh1},
+	}
 }
 
 // layoutBoundaries lists the offsets where fields of the file begin.
@@ -320,6 +375,7 @@ func generate(t *testing.T) []vector {
 		out = append(out, vector{
 			name:        fmt.Sprintf("%s-%04d.vec", g.name, count[g.name]),
 			description: desc, sieve: sieve, decoder: dec, check: checkClass, show: showOutcome(data), flip: flip, data: data,
+			merge: mergeOutcome(data, g.partner != "", dec, hashes), partner: g.partner,
 		})
 		count[g.name]++
 	}
@@ -378,6 +434,15 @@ func generate(t *testing.T) []vector {
 			copy(bad[hashAt(0, 1):], bad[hashAt(0, 0):hashAt(0, 0)+32])
 			add(g, "a leaf hash duplicated over its neighbour", bad, false, "")
 		}
+	}
+	// Regressions, named after the bug they found.
+	for _, g := range goods {
+		if g.partner == "" {
+			continue
+		}
+		b := bytes.Clone(g.data)
+		binary.BigEndian.PutUint32(b[cert.PreambleSize+5:], 0)
+		add(g, "regression: a shard count of 0 made the checker divide by zero", b, false, "")
 	}
 	// A header from another certificate: with the old hashes, and resealed.
 	for i, g := range goods[:2] {
@@ -460,9 +525,17 @@ func TestVectors(t *testing.T) {
 		got["check"] = checkClass(rep)
 		code, _, _ := runCLI("show", path)
 		got["show"] = map[int]string{exitOK: "ok", exitInvalid: "hash", exitUsage: "malformed"}[code]
-		want := map[string]string{"decoder": v.decoder, "check": v.check, "show": v.show}
+		margs := []string{"merge", "-o", filepath.Join(dir, "merged.dcert"), path}
+		if v.partner != "" {
+			partner := filepath.Join(dir, "partner.dcert")
+			require.NoError(t, os.WriteFile(partner, byName[v.partner].data, 0o644))
+			margs = append(margs, partner)
+		}
+		code, _, _ = runCLI(margs...)
+		got["merge"] = map[int]string{exitOK: "ok", exitInvalid: "refused", exitUsage: "malformed"}[code]
+		want := map[string]string{"decoder": v.decoder, "check": v.check, "show": v.show, "merge": v.merge}
 		ok := true
-		for _, ep := range []string{"decoder", "check", "show"} {
+		for _, ep := range []string{"decoder", "check", "show", "merge"} {
 			if got[ep] != want[ep] {
 				ok = false
 				failures = append(failures, fmt.Sprintf("%s (%s): %s gave %s, want %s (%v)", v.name, v.description, ep, got[ep], want[ep], rep.Err()))
