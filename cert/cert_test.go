@@ -310,7 +310,7 @@ func encodeWithCert(b []byte) ([]byte, error) {
 		kind = sh.Whole
 	}
 	switch kind {
-	case cert.KindSieve:
+	case cert.KindSieve, cert.KindJoins:
 		if header == nil {
 			h, err := cert.ParseSieveHeader(rd.Header)
 			if err != nil {
@@ -328,11 +328,39 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			if err != nil {
 				return nil, err
 			}
-			c, err := cert.ParseChunk(rec, 0)
+			if kind == cert.KindSieve {
+				c, err := cert.ParseChunk(rec, 0)
+				if err != nil {
+					return nil, err
+				}
+				recs = append(recs, c.Marshal())
+				continue
+			}
+			c, rest, err := cert.ParseChunkJoins(rec, 0)
 			if err != nil {
 				return nil, err
 			}
-			recs = append(recs, c.Marshal())
+			out := c.Marshal()
+			if len(recs) == 0 && len(rest) > 0 {
+				return nil, fmt.Errorf("the top chunk has %d bytes after its codes", len(rest))
+			}
+			if len(recs) > 0 {
+				open := 0
+				if err := c.Walk(func(cl cert.Class) error {
+					if !cl.Closed && int(cl.Depth) == c.To {
+						open++
+					}
+					return nil
+				}); err != nil {
+					return nil, err
+				}
+				j, err := cert.ParseJoins(rest, open, 0)
+				if err != nil {
+					return nil, err
+				}
+				out = cert.AppendJoins(out, j)
+			}
+			recs = append(recs, out)
 		}
 	case cert.KindRange:
 		if header == nil {
@@ -420,7 +448,7 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 		return nil, err
 	}
 	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
-		Survivors: h.Survivors, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}, Shard: shard}
+		Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}, Shard: shard}
 	for _, e := range h.Exceptions {
 		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
 		if e.Fate == cert.Cycle {
@@ -444,9 +472,12 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 		if err != nil {
 			return nil, err
 		}
-		c, err := cert.ParseChunk(rec, rd.Offs[i])
+		c, rest, err := cert.ParseChunkJoins(rec, rd.Offs[i])
 		if err != nil {
 			return nil, err
+		}
+		if !h.Joins && len(rest) > 0 {
+			return nil, fmt.Errorf("chunk %d: %d bytes after the codes", base+i, len(rest))
 		}
 		dc := check.DecodedChunk{Residue: c.Residue, Bits: c.NBits}
 		from, to := split, h.J
@@ -461,6 +492,22 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 			return nil
 		}); err != nil {
 			return nil, err
+		}
+		if h.Joins && base+i == 0 && len(rest) > 0 {
+			return nil, fmt.Errorf("the top chunk has %d bytes after its codes", len(rest))
+		}
+		if h.Joins && base+i > 0 {
+			open := 0
+			for _, l := range dc.Leaves {
+				if !l.Closed {
+					open++
+				}
+			}
+			j, err := cert.ParseJoins(rest, open, 0)
+			if err != nil {
+				return nil, err
+			}
+			dc.Joined, dc.Delta = append([]bool{}, j.Joined...), append([]int64{}, j.Delta...)
 		}
 		d.Chunks = append(d.Chunks, dc)
 	}

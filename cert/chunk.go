@@ -1,8 +1,6 @@
 package cert
 
-import (
-	"encoding/binary"
-)
+import "encoding/binary"
 
 // Chunk is one record of a sieve certificate: the trie codes of one subtree.
 // Record 0 is the top chunk (depths 0..D, Residue 0); record i >= 1 is the
@@ -27,8 +25,22 @@ func (c Chunk) Marshal() []byte {
 
 // ParseChunk decodes a record; base is its file offset, for errors.
 func ParseChunk(rec []byte, base int64) (Chunk, error) {
+	c, rest, err := parseChunk(rec, base)
+	if err == nil && len(rest) != 0 {
+		err = formatErr(base+int64(len(rec)-len(rest)), "%d bytes after the codes", len(rest))
+	}
+	return c, err
+}
+
+// ParseChunkJoins decodes a record of a sieve with joins: the chunk and the
+// bytes after its codes, its join section (empty for the top chunk).
+func ParseChunkJoins(rec []byte, base int64) (Chunk, []byte, error) {
+	return parseChunk(rec, base)
+}
+
+func parseChunk(rec []byte, base int64) (Chunk, []byte, error) {
 	if len(rec) < chunkFixed {
-		return Chunk{}, formatErr(base, "chunk record of %d bytes is shorter than its %d-byte head", len(rec), chunkFixed)
+		return Chunk{}, nil, formatErr(base, "chunk record of %d bytes is shorter than its %d-byte head", len(rec), chunkFixed)
 	}
 	c := Chunk{
 		Residue: binary.BigEndian.Uint64(rec),
@@ -38,18 +50,21 @@ func ParseChunk(rec []byte, base int64) (Chunk, error) {
 		Payload: rec[chunkFixed:],
 	}
 	if c.From > c.To || c.To > MaxK {
-		return Chunk{}, formatErr(base+8, "chunk spans depths %d to %d", c.From, c.To)
+		return Chunk{}, nil, formatErr(base+8, "chunk spans depths %d to %d", c.From, c.To)
 	}
 	if c.From < 64 && c.Residue>>c.From != 0 {
-		return Chunk{}, formatErr(base, "chunk residue %d does not fit below 2^%d", c.Residue, c.From)
+		return Chunk{}, nil, formatErr(base, "chunk residue %d does not fit below 2^%d", c.Residue, c.From)
 	}
-	if want := (c.NBits + 7) / 8; uint64(len(c.Payload)) != want {
-		return Chunk{}, formatErr(base+10, "%d code bits need %d bytes; the record holds %d", c.NBits, want, len(c.Payload))
+	want := (c.NBits + 7) / 8
+	if uint64(len(c.Payload)) < want {
+		return Chunk{}, nil, formatErr(base+10, "%d code bits need %d bytes; the record holds %d", c.NBits, want, len(c.Payload))
 	}
+	rest := c.Payload[want:]
+	c.Payload = c.Payload[:want]
 	if pad := c.NBits % 8; pad != 0 && c.Payload[len(c.Payload)-1]&(0xff>>pad) != 0 {
-		return Chunk{}, formatErr(base+int64(len(rec))-1, "nonzero padding bits after the last code bit")
+		return Chunk{}, nil, formatErr(base+chunkFixed+int64(want)-1, "nonzero padding bits after the last code bit")
 	}
-	return c, nil
+	return c, rest, nil
 }
 
 // Class is one leaf of the trie: the residue class Residue mod 2^Depth,
@@ -102,4 +117,132 @@ func (c Chunk) Walk(fn func(Class) error) error {
 		return formatErr(chunkFixed, "%d code bits left after the last class", c.NBits-r.pos)
 	}
 	return nil
+}
+
+// Joins is the join section of a chunk of a sieve with joins (SPEC.md,
+// section 8): for each survivor of the chunk, in the order of the codes,
+// whether it is joined, and if so Delta = r - r' for its partner r'.
+type Joins struct {
+	Joined []bool
+	Delta  []int64 // one per joined survivor, in order
+}
+
+// The join codes, one per survivor, most significant bit first:
+//
+//	0    not joined
+//	10   joined to r - 1
+//	11   joined to r - delta, delta the next zigzag varint after the codes
+//
+// The codes are padded with zero bits to a whole byte; the varints follow,
+// and a varint never holds delta = 1, which has its own code.
+
+// JoinWriter builds a join section survivor by survivor, for writers
+// that would rather not hold a Joins.
+type JoinWriter struct {
+	codes  BitWriter
+	deltas []byte
+	joined uint64
+}
+
+// Keep records a survivor that is not joined.
+func (w *JoinWriter) Keep() { w.codes.WriteBits(0, 1) }
+
+// Keeps records n survivors that are not joined.
+func (w *JoinWriter) Keeps(n uint64) {
+	for ; n >= 64; n -= 64 {
+		w.codes.WriteBits(0, 64)
+	}
+	w.codes.WriteBits(0, uint(n))
+}
+
+// Join records a survivor joined to the residue delta below it.
+func (w *JoinWriter) Join(delta int64) {
+	w.joined++
+	if delta == 1 {
+		w.codes.WriteBits(0b10, 2)
+		return
+	}
+	w.codes.WriteBits(0b11, 2)
+	w.deltas = binary.AppendVarint(w.deltas, delta)
+}
+
+// Neighbours records n survivors, each joined to the residue just below.
+func (w *JoinWriter) Neighbours(n uint64) {
+	w.joined += n
+	const tens = 0xaaaaaaaaaaaaaaaa // 32 codes 10
+	for ; n >= 32; n -= 32 {
+		w.codes.WriteBits(tens, 64)
+	}
+	w.codes.WriteBits(tens, uint(2*n))
+}
+
+// Joined is the number of joined survivors recorded.
+func (w *JoinWriter) Joined() uint64 { return w.joined }
+
+// AppendTo appends the section to b: the same bytes as AppendJoins.
+func (w *JoinWriter) AppendTo(b []byte) []byte {
+	return append(append(b, w.codes.Bytes()...), w.deltas...)
+}
+
+// AppendJoins encodes a join section.
+func AppendJoins(b []byte, j Joins) []byte {
+	var w JoinWriter
+	d := 0
+	for _, x := range j.Joined {
+		if !x {
+			w.Keep()
+			continue
+		}
+		w.Join(j.Delta[d])
+		d++
+	}
+	return w.AppendTo(b)
+}
+
+// ParseJoins decodes the join section of a chunk with survivors survivors
+// from rest, the bytes after the codes, which it must use exactly; base is
+// its file offset, for errors.
+func ParseJoins(rest []byte, survivors int, base int64) (Joins, error) {
+	j := Joins{Joined: []bool{}, Delta: []int64{}}
+	r := bitReader{buf: rest, nbit: uint64(len(rest)) * 8}
+	var explicit []int // the places in Delta that a varint fills
+	for range survivors {
+		x, ok := r.bit()
+		if !ok {
+			return j, formatErr(base, "the join codes of %d survivors run past the %d bytes of the section", survivors, len(rest))
+		}
+		if x == 0 {
+			j.Joined = append(j.Joined, false)
+			continue
+		}
+		y, ok := r.bit()
+		if !ok {
+			return j, formatErr(base, "the join codes of %d survivors run past the %d bytes of the section", survivors, len(rest))
+		}
+		j.Joined = append(j.Joined, true)
+		if y == 1 {
+			explicit = append(explicit, len(j.Delta))
+		}
+		j.Delta = append(j.Delta, 1)
+	}
+	nb := (r.pos + 7) / 8
+	if pad := r.pos % 8; pad != 0 && rest[nb-1]&(0xff>>pad) != 0 {
+		return j, formatErr(base+int64(nb-1), "nonzero padding after the join codes")
+	}
+	rest, base = rest[nb:], base+int64(nb)
+	for _, at := range explicit {
+		d, n := binary.Varint(rest)
+		if n <= 0 || n != len(binary.AppendVarint(nil, d)) {
+			return j, formatErr(base, "a join delta is not a canonical varint")
+		}
+		if d == 1 {
+			return j, formatErr(base, "a join delta of 1 written as a varint; it has its own code")
+		}
+		j.Delta[at] = d
+		rest, base = rest[n:], base+int64(n)
+	}
+	if len(rest) != 0 {
+		return j, formatErr(base, "%d bytes after the join deltas", len(rest))
+	}
+	return j, nil
 }

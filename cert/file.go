@@ -14,6 +14,7 @@ const (
 	Magic        = "descent\x00"
 	Version      = 1
 	KindSieve    = 's'
+	KindJoins    = 'j' // a sieve whose survivors may be joined to smaller ones
 	PreambleSize = 18
 
 	// MaxRecords bounds the record count a preamble may declare; the stored
@@ -66,7 +67,7 @@ func parsePreamble(b []byte) (preamble, error) {
 		return p, formatErr(8, "unknown format version %d (this program reads version %d)", b[8], Version)
 	}
 	p.kind = b[9]
-	if p.kind != KindSieve && p.kind != KindRange && p.kind != KindShard {
+	if p.kind != KindSieve && p.kind != KindJoins && p.kind != KindRange && p.kind != KindShard {
 		return p, formatErr(9, "unknown certificate kind %q", p.kind)
 	}
 	records := binary.BigEndian.Uint32(b[10:])
@@ -116,12 +117,13 @@ func (l Layout) NodeOff(level, index int) int64 {
 // records in the file, are filled in as records arrive, so memory stays
 // bounded whatever the number of records.
 type Writer struct {
-	w    io.WriterAt
-	lay  Layout
-	tb   *treeBuilder
-	next int
-	pos  int64
-	root Hash
+	w      io.WriterAt
+	lay    Layout
+	tb     *treeBuilder
+	next   int
+	pos    int64
+	root   Hash
+	header []byte
 }
 
 // NewWriter writes header, a complete header as returned by Marshal.
@@ -139,10 +141,28 @@ func NewWriter(w io.WriterAt, header []byte) (*Writer, error) {
 		_, err := w.WriteAt(h[:], wr.lay.NodeOff(level, index))
 		return err
 	})
-	if _, err := w.WriteAt(header, 0); err != nil {
-		return nil, err
+	wr.header = header
+	_, err = w.WriteAt(header, 0)
+	return wr, err
+}
+
+// SetHeader replaces the header, before Close, by one of the same length:
+// a writer may learn counts only as it goes. The tree's nodes that depend
+// on the header are computed at Close.
+func (w *Writer) SetHeader(header []byte) error {
+	if len(header) != len(w.header) {
+		return fmt.Errorf("cert: a header of %d bytes cannot replace one of %d", len(header), len(w.header))
 	}
-	return wr, wr.tb.add(0, 0, LeafHash(header))
+	p, err := parsePreamble(header)
+	if err != nil {
+		return err
+	}
+	if p.records != w.lay.Records {
+		return fmt.Errorf("cert: the new header declares %d records, the old %d", p.records, w.lay.Records)
+	}
+	w.header = header
+	_, err = w.w.WriteAt(header, 0)
+	return err
 }
 
 // WriteRecord appends the next record, whose leaf hash the caller computed
@@ -173,6 +193,9 @@ func (w *Writer) putOffset(i int, off int64) error {
 func (w *Writer) Close() (Hash, int64, error) {
 	if w.next != w.lay.Records {
 		return Hash{}, 0, fmt.Errorf("cert: %d records written, the header declares %d", w.next, w.lay.Records)
+	}
+	if err := w.tb.spine(LeafHash(w.header)); err != nil {
+		return Hash{}, 0, err
 	}
 	return w.root, w.pos, w.putOffset(w.lay.Records, w.pos)
 }

@@ -151,15 +151,36 @@ func VerifyAuditPath(leaf Hash, i, n int, path []Hash, root Hash) error {
 // holding one pending hash per level, and hands every node to put as soon
 // as it is known. The emitter uses it to write the stored tree of a
 // certificate in bounded memory.
+//
+// Leaf 0 (the header) may come last: the nodes that depend on it are the
+// first of each level, the left spine, so the builder keeps the right
+// sibling of each spine node and folds the spine when leaf 0 arrives.
 type treeBuilder struct {
 	sizes   []int
 	pending []Hash
+	right   []*Hash // right[l]: the sibling of the spine node on level l, once known
 	put     func(level, index int, h Hash) error
 }
 
 func newTreeBuilder(n int, put func(level, index int, h Hash) error) *treeBuilder {
 	sizes := LevelSizes(n)
-	return &treeBuilder{sizes: sizes, pending: make([]Hash, len(sizes)), put: put}
+	return &treeBuilder{sizes: sizes, pending: make([]Hash, len(sizes)), right: make([]*Hash, len(sizes)), put: put}
+}
+
+// spine adds leaf 0 and computes the first node of every level.
+func (b *treeBuilder) spine(leaf Hash) error {
+	h := leaf
+	for l := 0; ; l++ {
+		if err := b.put(l, 0, h); err != nil {
+			return err
+		}
+		if l == len(b.sizes)-1 {
+			return nil
+		}
+		if b.sizes[l] > 1 {
+			h = NodeHash(h, *b.right[l])
+		}
+	}
 }
 
 func (b *treeBuilder) add(level, index int, h Hash) error {
@@ -170,6 +191,9 @@ func (b *treeBuilder) add(level, index int, h Hash) error {
 		return nil
 	}
 	switch {
+	case index == 1: // the right sibling of the spine: its parent waits for leaf 0
+		b.right[level] = &h
+		return nil
 	case index%2 == 1:
 		return b.add(level+1, index/2, NodeHash(b.pending[level], h))
 	case index == b.sizes[level]-1:

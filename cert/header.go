@@ -99,11 +99,15 @@ const (
 
 // SieveHeader is the kind 's' header: the claim of a sieve certificate.
 type SieveHeader struct {
-	Map        Map
-	K, J       int
-	Cap        uint32
-	Chunks     int      // number of chunk records, the top chunk included
-	Survivors  uint64   // residues mod 2^K that survive J steps
+	Map       Map
+	K, J      int
+	Cap       uint32
+	Chunks    int    // number of chunk records, the top chunk included
+	Survivors uint64 // residues mod 2^K that survive J steps
+	// Joins: a sieve with joins (kind 'j', j = k) lists, for each joined
+	// survivor, a smaller partner; Joined counts them (SPEC.md, section 8).
+	Joins      bool
+	Joined     uint64
 	ClosedAt   []uint64 // ClosedAt[t-1]: classes mod 2^t closing at step t, t = 1..J
 	Exceptions []Exception
 }
@@ -128,6 +132,9 @@ func (h *SieveHeader) Marshal() ([]byte, error) {
 	body = append(body, byte(h.K), byte(h.J))
 	body = binary.BigEndian.AppendUint32(body, h.Cap)
 	body = binary.BigEndian.AppendUint64(body, h.Survivors)
+	if h.Joins {
+		body = binary.BigEndian.AppendUint64(body, h.Joined)
+	}
 	for _, c := range h.ClosedAt {
 		body = binary.BigEndian.AppendUint64(body, c)
 	}
@@ -145,7 +152,11 @@ func (h *SieveHeader) Marshal() ([]byte, error) {
 	if len(body) > MaxHeaderBody {
 		return nil, fmt.Errorf("cert: header body of %d bytes exceeds %d", len(body), MaxHeaderBody)
 	}
-	return appendPreamble(nil, KindSieve, h.Chunks, body), nil
+	kind := byte(KindSieve)
+	if h.Joins {
+		kind = KindJoins
+	}
+	return appendPreamble(nil, kind, h.Chunks, body), nil
 }
 
 func (h *SieveHeader) validate() error {
@@ -161,6 +172,8 @@ func (h *SieveHeader) validate() error {
 		return fmt.Errorf("cap = %d: want 1 <= cap <= %d", h.Cap, MaxCap)
 	case len(h.ClosedAt) != h.J:
 		return fmt.Errorf("%d closing counts for j = %d", len(h.ClosedAt), h.J)
+	case h.Joins && (h.J != h.K || h.Joined > h.Survivors):
+		return fmt.Errorf("a sieve with joins needs j = k and at most as many joined as survivors")
 	case h.Chunks < 2 || h.Chunks > 1+1<<SplitDepth(h.J):
 		return fmt.Errorf("%d chunks: a trie cut at depth %d has 2 to %d", h.Chunks, SplitDepth(h.J), 1+1<<SplitDepth(h.J))
 	case len(h.Exceptions) > MaxExceptions:
@@ -197,7 +210,7 @@ func ParseSieveHeader(b []byte) (*SieveHeader, error) {
 	if err != nil {
 		return nil, err
 	}
-	if p.kind != KindSieve {
+	if p.kind != KindSieve && p.kind != KindJoins {
 		return nil, formatErr(9, "kind %q is not a sieve certificate", p.kind)
 	}
 	if len(b) != PreambleSize+p.bodyLen {
@@ -211,6 +224,9 @@ func ParseSieveHeader(b []byte) (*SieveHeader, error) {
 	h.J = int(d.u8("j"))
 	h.Cap = d.u32("step cap")
 	h.Survivors = d.u64("survivor count")
+	if h.Joins = p.kind == KindJoins; h.Joins {
+		h.Joined = d.u64("joined count")
+	}
 	if d.err == nil && (h.J < 1 || h.J > h.K || h.K > MaxK) {
 		return nil, formatErr(22, "k = %d, j = %d: want 1 <= j <= k <= %d", h.K, h.J, MaxK)
 	}

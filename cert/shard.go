@@ -45,7 +45,7 @@ func (h *ShardHeader) validate() error {
 		return fmt.Errorf("shard: the whole's header: %v", err)
 	}
 	switch {
-	case p.kind != h.Whole || (h.Whole != KindSieve && h.Whole != KindRange):
+	case p.kind != h.Whole || (h.Whole != KindSieve && h.Whole != KindJoins && h.Whole != KindRange):
 		return fmt.Errorf("shard: a whole of kind %q with a header of kind %q", h.Whole, p.kind)
 	case len(h.WholeHeader) != PreambleSize+p.bodyLen:
 		return fmt.Errorf("shard: the whole's header is cut")
@@ -91,7 +91,7 @@ func ParseShardHeader(b []byte) (*ShardHeader, error) {
 		return nil, formatErr(PreambleSize, "%v", err)
 	}
 	switch h.Whole {
-	case KindSieve:
+	case KindSieve, KindJoins:
 		_, err = ParseSieveHeader(h.WholeHeader)
 	case KindRange:
 		_, err = ParseRangeHeader(h.WholeHeader)

@@ -121,6 +121,10 @@ func (r *Report) describe(f *file) {
 	h := f.hdr
 	r.Kind, r.Map, r.K, r.J, r.Cap, r.Chunks = "sieve", mapName(h.a, h.b), h.k, h.j, h.cap, f.records
 	r.Survivors = numU(h.survivors)
+	if h.joins {
+		r.Joined, r.SieveSurvivors = numU(h.joined), numU(h.survivors)
+		r.Survivors = numU(h.survivors - h.joined)
+	}
 	r.ClosedAt = map[string]Num{}
 	for t, c := range h.closedAt {
 		if c != 0 {
@@ -153,6 +157,8 @@ type tally struct {
 	survivors uint64   // classes open at depth j
 	closed    []uint64 // closed[t]
 	stubs     int
+	joined    uint64 // joins verified
+	allJoins  bool   // every chunk was read, so joined is the whole count
 }
 
 type result struct {
@@ -164,7 +170,7 @@ type result struct {
 // Results are taken in file order, so the failure reported is always the
 // first one in the file, whatever the number of workers.
 func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
-	t := tally{closed: make([]uint64, sv.j+1)}
+	t := tally{closed: make([]uint64, sv.j+1), allJoins: sv.h.joins}
 	rec, fl := f.record()
 	if fl != nil {
 		return t, fl
@@ -263,6 +269,7 @@ func (sv *sieve) leaf(f *file, i int, rec []byte) *Failure {
 
 func (t *tally) add(w *walk) {
 	t.survivors += w.survivors
+	t.joined += w.joined
 	for i, c := range w.closed {
 		t.closed[i] += c
 	}
@@ -276,6 +283,10 @@ func (sv *sieve) checkCounts(t tally) *Failure {
 	if got != h.survivors {
 		return invalid("count", Where{Claim: "survivors", Expected: strconv.FormatUint(got, 10), Found: strconv.FormatUint(h.survivors, 10)},
 			"the header counts %d survivors mod 2^%d; the chunks hold %d", h.survivors, h.k, got)
+	}
+	if t.allJoins && t.joined != h.joined {
+		return invalid("count", Where{Claim: "joined survivors", Expected: strconv.FormatUint(t.joined, 10), Found: strconv.FormatUint(h.joined, 10)},
+			"the header counts %d joined survivors; the chunks hold %d joins", h.joined, t.joined)
 	}
 	for s := 1; s <= h.j; s++ {
 		if t.closed[s] != h.closedAt[s-1] {

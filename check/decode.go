@@ -16,6 +16,7 @@ const (
 	magic       = "descent\x00"
 	version     = 1
 	kindSieve   = 's'
+	kindJoins   = 'j' // a sieve with joins
 	kindRange   = 'r'
 	kindShard   = 'h'
 	preambleLen = 18
@@ -46,6 +47,8 @@ type sieveHeader struct {
 	k, j      int
 	cap       uint32
 	survivors uint64
+	joins     bool     // a sieve with joins (kind 'j')
+	joined    uint64   // its joined survivors
 	closedAt  []uint64 // closedAt[t-1] for t = 1..j
 	exc       []exception
 }
@@ -99,7 +102,7 @@ func (f *file) readHeader() *Failure {
 	if pre[8] != version {
 		return malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
 	}
-	if pre[9] != kindSieve && pre[9] != kindRange && pre[9] != kindShard {
+	if pre[9] != kindSieve && pre[9] != kindJoins && pre[9] != kindRange && pre[9] != kindShard {
 		return malformed(9, "unknown certificate kind %q", pre[9])
 	}
 	records := binary.BigEndian.Uint32(pre[10:])
@@ -126,7 +129,7 @@ func (f *file) readHeader() *Failure {
 			return fl
 		}
 	} else {
-		if f.hdr, fl = parseSieveHeader(body); fl != nil {
+		if f.hdr, fl = parseSieveHeader(body, pre[9] == kindJoins); fl != nil {
 			return fl
 		}
 		if fl := f.hdr.sane(f.records); fl != nil {
@@ -258,7 +261,7 @@ func (p *fields) natural(what string) *big.Int {
 	return new(big.Int).SetBytes(b)
 }
 
-func parseSieveHeader(body []byte) (*sieveHeader, *Failure) {
+func parseSieveHeader(body []byte, joins bool) (*sieveHeader, *Failure) {
 	p := &fields{b: body}
 	h := &sieveHeader{}
 	h.a = p.int32be("multiplier")
@@ -267,6 +270,9 @@ func parseSieveHeader(body []byte) (*sieveHeader, *Failure) {
 	h.j = int(p.byte1("j"))
 	h.cap = p.int32be("step cap")
 	h.survivors = p.int64be("survivor count")
+	if h.joins = joins; joins {
+		h.joined = p.int64be("joined count")
+	}
 	if p.bad == nil && (h.k < 1 || h.k > maxK || h.j < 1 || h.j > h.k) {
 		return nil, malformed(preambleLen+8, "k = %d and j = %d: the format needs 1 <= j <= k <= %d", h.k, h.j, maxK)
 	}
@@ -313,6 +319,8 @@ func (h *sieveHeader) sane(records int) *Failure {
 		return malformed(at+4, "constant %d: the format needs an odd b > -a", h.b)
 	case h.cap < 1 || h.cap > maxCap:
 		return malformed(at+10, "step cap %d: the format allows 1 to %d", h.cap, maxCap)
+	case h.joins && (h.j != h.k || h.joined > h.survivors):
+		return malformed(at+24, "a sieve with joins needs j = k and at most %d joined of its survivors", h.survivors)
 	case records < 2 || records-1 > 1<<splitDepth(h.j):
 		return malformed(10, "%d records: a trie cut at depth %d has 1 to %d classes below the top", records, splitDepth(h.j), 1<<splitDepth(h.j))
 	}
@@ -366,7 +374,7 @@ func parseShardHeader(body []byte, records int) (*shardHeader, *Failure) {
 		return nil, malformed(int64(preambleLen+p.pos), "%d bytes follow the whole's header", len(body)-p.pos)
 	}
 	w := h.wholeHeader
-	if len(w) < preambleLen || string(w[:8]) != magic || w[8] != version || (w[9] != kindSieve && w[9] != kindRange) || w[9] != h.whole {
+	if len(w) < preambleLen || string(w[:8]) != magic || w[8] != version || (w[9] != kindSieve && w[9] != kindJoins && w[9] != kindRange) || w[9] != h.whole {
 		return nil, malformed(preambleLen+21, "the whole's header is not a sieve or range header of the kind the shard names")
 	}
 	h.wholeRecords = int(binary.BigEndian.Uint32(w[10:]))
@@ -385,8 +393,8 @@ func parseShardHeader(body []byte, records int) (*shardHeader, *Failure) {
 		return nil, malformed(preambleLen+9, "shard %d of %d must hold records %d to %d, one per record of the file", h.index, h.of, first, last-1)
 	}
 	var fl *Failure
-	if h.whole == kindSieve {
-		if h.hdr, fl = parseSieveHeader(wb); fl == nil {
+	if h.whole == kindSieve || h.whole == kindJoins {
+		if h.hdr, fl = parseSieveHeader(wb, h.whole == kindJoins); fl == nil {
 			fl = h.hdr.sane(h.wholeRecords)
 		}
 	} else {

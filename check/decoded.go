@@ -12,6 +12,8 @@ type Decoded struct {
 	K, J       int
 	Cap        uint32
 	Survivors  uint64
+	Joins      bool     // a sieve with joins
+	Joined     uint64   // the joined survivors it claims
 	ClosedAt   []uint64 // ClosedAt[t-1] for t = 1..J
 	Exceptions []ExceptionReport
 	Tree       [][][hashLen]byte
@@ -70,6 +72,10 @@ type DecodedChunk struct {
 	Residue uint64
 	Bits    uint64
 	Leaves  []DecodedClass
+	// A sieve with joins: for each survivor of a chunk below the top, in
+	// order, whether it is joined, and the deltas of the joined ones.
+	Joined []bool
+	Delta  []int64
 }
 
 // DecodedClass is a leaf of the trie: Residue mod 2^Depth, closed at step
@@ -102,7 +108,7 @@ func Decode(r io.Reader) (*Decoded, error) {
 	rep := &Report{}
 	rep.describe(f)
 	d := &Decoded{Header: f.header, Records: f.records, Map: rep.Map, K: f.hdr.k, J: f.hdr.j, Cap: f.hdr.cap,
-		Survivors: f.hdr.survivors, ClosedAt: f.hdr.closedAt, Exceptions: rep.Exceptions, Tree: f.tree, Offsets: f.offsets, Shard: shard}
+		Survivors: f.hdr.survivors, Joins: f.hdr.joins, Joined: f.hdr.joined, ClosedAt: f.hdr.closedAt, Exceptions: rep.Exceptions, Tree: f.tree, Offsets: f.offsets, Shard: shard}
 	for i := 0; ; i++ {
 		rec, fl := f.record()
 		if fl != nil {
@@ -111,7 +117,7 @@ func Decode(r io.Reader) (*Decoded, error) {
 		if rec == nil {
 			return d, nil
 		}
-		c, err := decodeChunk(rec, base+i, f.hdr.j, f.offsets[i])
+		c, err := decodeChunk(rec, base+i, f.hdr, f.offsets[i])
 		if err != nil {
 			return nil, err
 		}
@@ -120,8 +126,8 @@ func Decode(r io.Reader) (*Decoded, error) {
 }
 
 // decodeChunk reads the codes of chunk i by the grammar alone.
-func decodeChunk(rec []byte, i, j int, base int64) (DecodedChunk, *Failure) {
-	sv := &sieve{j: j, d: splitDepth(j)} // no map: only the framing and the bits are used
+func decodeChunk(rec []byte, i int, h *sieveHeader, base int64) (DecodedChunk, *Failure) {
+	sv := &sieve{h: h, j: h.j, d: splitDepth(h.j)} // no map: only the framing and the bits are used
 	w, fl := sv.frame(i, rec, base)
 	if fl == nil {
 		fl = sv.depths(w)
@@ -157,6 +163,32 @@ func decodeChunk(rec []byte, i, j int, base int64) (DecodedChunk, *Failure) {
 	}
 	if !leaves(w.start, w.begin) || w.pos != w.nbit {
 		return c, malformed(base+chunkHead, "chunk %d: the codes do not fit the trie grammar from depth %d to %d", i, w.begin, w.end)
+	}
+	if !h.joins {
+		return c, nil
+	}
+	at := base + int64(len(rec)-len(w.rest))
+	if i == 0 {
+		if len(w.rest) > 0 {
+			return c, malformed(at, "the top chunk has %d bytes after its codes; only chunks with survivors have joins", len(w.rest))
+		}
+		return c, nil
+	}
+	n := 0
+	for _, l := range c.Leaves {
+		if !l.Closed {
+			n++
+		}
+	}
+	joined, deltas, fl := readJoins(w.rest, n, i, at)
+	if fl != nil {
+		return c, fl
+	}
+	c.Joined, c.Delta = joined, []int64{}
+	for x, d := range deltas {
+		if joined[x] {
+			c.Delta = append(c.Delta, d)
+		}
 	}
 	return c, nil
 }

@@ -112,18 +112,21 @@ type ExceptionReport struct {
 // they are proven only when Valid is true.
 type Report struct {
 	// JSON keys are chosen per kind by MarshalJSON.
-	File       string
-	Valid      bool
-	Kind       string
-	Root       string
-	Map        string
-	K          int
-	J          int
-	Cap        uint32
-	Chunks     int
-	Survivors  Num
-	ClosedAt   map[string]Num
-	Exceptions []ExceptionReport
+	File      string
+	Valid     bool
+	Kind      string
+	Root      string
+	Map       string
+	K         int
+	J         int
+	Cap       uint32
+	Chunks    int
+	Survivors Num // a sieve with joins: the survivors not joined, still to search
+	// A sieve with joins: the survivors joined to smaller residues, and all
+	// survivors, joined or not.
+	Joined, SieveSurvivors Num
+	ClosedAt               map[string]Num
+	Exceptions             []ExceptionReport
 	// Range certificates.
 	SieveRoot       string
 	From            Num
@@ -258,6 +261,8 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		Cap        uint32            `json:"cap,omitempty"`
 		Chunks     int               `json:"chunks,omitempty"`
 		Survivors  Num               `json:"survivors,omitempty"`
+		Joined     Num               `json:"joined,omitempty"`
+		Before     Num               `json:"sieve_survivors,omitempty"`
 		ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
 		Exceptions []ExceptionReport `json:"exceptions"`
 		Shard      *SpanReport       `json:"shard,omitempty"`
@@ -265,7 +270,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		BytesRead  int64             `json:"bytes_read,omitempty"`
 		Partial    bool              `json:"partial,omitempty"`
 		failure
-	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, r.Partial, f})
+	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.Joined, r.SieveSurvivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, r.Partial, f})
 }
 
 func orEmpty[T any](s []T) []T {

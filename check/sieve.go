@@ -77,8 +77,12 @@ type walk struct {
 	survivors uint64
 	closed    []uint64 // closed[t]
 	stubs     []stubState
-	memo      *memo // nil: walk every class
-	maxStubs  int   // the top chunk: the stubs the preamble allows
+	memo      *memo    // nil: walk every class
+	maxStubs  int      // the top chunk: the stubs the preamble allows
+	collect   bool     // keep the survivors' residues (for their joins)
+	found     []uint64 // the survivors, in the order of the codes
+	rest      []byte   // the record's bytes after the codes: a join section
+	joined    uint64
 	fail      *Failure
 }
 
@@ -147,6 +151,9 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 	}
 	if w.end == sv.j {
 		w.survivors++
+		if w.collect {
+			w.found = append(w.found, res)
+		}
 		return true
 	}
 	// The list of stubs is bounded by the record count the file declares,
@@ -191,8 +198,10 @@ func (sv *sieve) frame(i int, rec []byte, base int64) (*walk, *Failure) {
 	if w.begin > w.end || w.end > maxK {
 		return nil, malformed(base+8, "chunk %d spans depths %d to %d", i, w.begin, w.end)
 	}
-	if uint64(len(w.code)) != (w.nbit+7)/8 {
+	if n := (w.nbit + 7) / 8; uint64(len(w.code)) < n || (!sv.h.joins && uint64(len(w.code)) != n) {
 		return nil, malformed(base+10, "chunk %d: %d code bits need %d bytes, the record has %d", i, w.nbit, (w.nbit+7)/8, len(w.code))
+	} else {
+		w.code, w.rest = w.code[:n], w.code[n:]
 	}
 	if w.nbit%8 != 0 && w.code[len(w.code)-1]<<(w.nbit%8) != 0 {
 		return nil, malformed(base+int64(len(rec))-1, "chunk %d: padding bits are not zero", i)
@@ -231,8 +240,15 @@ func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *m
 	}
 	w.closed = make([]uint64, sv.j+1)
 	start := stubState{}
+	if i == 0 && len(w.rest) > 0 {
+		return nil, malformed(base+int64(len(rec)-len(w.rest)), "the top chunk has %d bytes after its codes; only chunks with survivors have joins", len(w.rest))
+	}
 	if i > 0 {
 		w.memo = m
+		if sv.h.joins { // the joins name survivors by their place: walk each one
+			w.memo, w.collect = nil, true
+			w.found = make([]uint64, 0, min(w.nbit+1, 1<<20)) // a trie has at most one leaf per code bit, plus one
+		}
 		if w.start != want.res {
 			return nil, invalid("residue", w.where(w.start, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(w.start, 10)),
 				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.res, sv.d, i, sv.d)
@@ -245,6 +261,11 @@ func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *m
 	if w.pos != w.nbit {
 		return nil, invalid("depth", w.where(start.res, w.begin, "", "", ""),
 			"%d code bits are left after the last class of depth %d", w.nbit-w.pos, w.end)
+	}
+	if w.collect {
+		if fl := sv.checkJoins(w, base+int64(len(rec)-len(w.rest))); fl != nil {
+			return nil, fl
+		}
 	}
 	return w, nil
 }

@@ -1,0 +1,139 @@
+package check
+
+import (
+	"encoding/binary"
+	"fmt"
+	"math/big"
+	"math/bits"
+	"strconv"
+)
+
+// Joins (SPEC.md, section 8): survivor r mod 2^k joins r' = r - delta when
+// delta > 0 and after k steps both have the same number of odd steps and
+// the same value; then every member 2^k*q + r meets 2^k*q + r' after k
+// steps. The checker follows both residues itself.
+
+// readJoins reads a join section for n survivors (SPEC.md, section 8):
+// a code per survivor (0: not joined; 10: joined to r - 1; 11: joined to
+// r - delta, delta from the varints), zero bits to a whole byte, then one
+// canonical zigzag varint, never 1, per code 11, using every byte. It
+// returns whether each survivor is joined and its delta; at is the
+// section's offset.
+func readJoins(rest []byte, n, chunk int, at int64) ([]bool, []int64, *Failure) {
+	joined, deltas := make([]bool, n), make([]int64, n)
+	pos, nbit := 0, 8*len(rest)
+	bit := func() (byte, bool) {
+		if pos >= nbit {
+			return 0, false
+		}
+		b := rest[pos/8] >> (7 - pos%8) & 1
+		pos++
+		return b, true
+	}
+	var explicit []int
+	for x := range n {
+		c, ok := bit()
+		if ok && c == 1 {
+			var y byte
+			y, ok = bit()
+			joined[x], deltas[x] = true, 1
+			if y == 1 {
+				explicit = append(explicit, x)
+			}
+		}
+		if !ok {
+			return nil, nil, malformed(at, "chunk %d: the join codes of %d survivors need more than the section's %d bytes", chunk, n, len(rest))
+		}
+	}
+	nb := (pos + 7) / 8
+	if pos%8 != 0 && rest[nb-1]<<(pos%8) != 0 {
+		return nil, nil, malformed(at+int64(nb)-1, "chunk %d: padding bits after the join codes are not zero", chunk)
+	}
+	rest, at = rest[nb:], at+int64(nb)
+	for _, x := range explicit {
+		d, m := binary.Varint(rest)
+		if m <= 0 || m != len(binary.AppendVarint(nil, d)) || d == 1 {
+			return nil, nil, malformed(at, "chunk %d: the delta of joined survivor %d is not a canonical varint other than 1", chunk, x)
+		}
+		deltas[x] = d
+		rest, at = rest[m:], at+int64(m)
+	}
+	if len(rest) > 0 {
+		return nil, nil, malformed(at, "chunk %d: %d bytes follow the last join", chunk, len(rest))
+	}
+	return joined, deltas, nil
+}
+
+// checkJoins reads the join section of a chunk whose survivors are
+// w.found and checks every join it claims; at is the section's offset.
+func (sv *sieve) checkJoins(w *walk, at int64) *Failure {
+	joined, deltas, fl := readJoins(w.rest, len(w.found), w.chunk, at)
+	if fl != nil {
+		return fl
+	}
+	for x, r := range w.found {
+		if !joined[x] {
+			continue
+		}
+		if fl := sv.join(w, r, deltas[x]); fl != nil {
+			return fl
+		}
+		w.joined++
+	}
+	return nil
+}
+
+// join checks that survivor r mod 2^k joins r - delta.
+func (sv *sieve) join(w *walk, r uint64, delta int64) *Failure {
+	claim := func() string { return fmt.Sprintf("joins %d mod 2^%d", int64(r)-delta, sv.j) }
+	if delta <= 0 || uint64(delta) > r {
+		return invalid("join", w.where(r, sv.j, claim(), "a smaller partner", fmt.Sprintf("partner %d", int64(r)-delta)),
+			"the partner of a join must be a smaller residue (0 <= r' < r); %d is not", int64(r)-delta)
+	}
+	p := r - uint64(delta)
+	s1, v1, b1 := sv.afterK(r)
+	s2, v2, b2 := sv.afterK(p)
+	switch {
+	case s1 != s2:
+		return invalid("join", w.where(r, sv.j, claim(), fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
+			"after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", sv.j, r, s1, p, sv.j, s2)
+	case v1 != v2 || (b1 == nil) != (b2 == nil) || (b1 != nil && b1.Cmp(b2) != 0):
+		show := func(v uint64, b *big.Int) string {
+			if b != nil {
+				return b.String()
+			}
+			return strconv.FormatUint(v, 10)
+		}
+		return invalid("join", w.where(r, sv.j, claim(), "the same value after k steps", show(v1, b1)+" and "+show(v2, b2)),
+			"T^%d(%d) = %s but T^%d(%d) = %s: the paths do not meet", sv.j, r, show(v1, b1), sv.j, p, show(v2, b2))
+	}
+	return nil
+}
+
+// afterK follows x for k steps exactly and returns the odd steps and
+// T^k(x): in 64 bits while they suffice (big is nil), else in big.
+func (sv *sieve) afterK(x uint64) (s int, v uint64, big_ *big.Int) {
+	for t := 0; t < sv.j; t++ {
+		if x&1 == 0 {
+			x >>= 1
+			continue
+		}
+		hi, lo := bits.Mul64(x, sv.a)
+		lo, c := bits.Add64(lo, uint64(int64(sv.h.b)), 0)
+		if sv.h.b < 0 {
+			c-- // the carry of adding b in two's complement, less one
+		}
+		if hi+c != 0 {
+			z := new(big.Int).SetUint64(x)
+			for ; t < sv.j; t++ {
+				if sv.apply(z) {
+					s++
+				}
+			}
+			return s, 0, z
+		}
+		x = lo >> 1
+		s++
+	}
+	return s, x, nil
+}
