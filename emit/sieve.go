@@ -19,9 +19,10 @@ import (
 // SieveParams names a sieve: the map, the modulus exponent k, the step
 // budget j <= k and the step cap for deciding the exceptions' fates.
 type SieveParams struct {
-	Map  cert.Map
-	K, J int
-	Cap  uint32
+	Map   cert.Map
+	K, J  int
+	Cap   uint32
+	Joins bool // list joined survivors (needs J = K; SPEC.md, section 8)
 }
 
 // DefaultCap is the step cap for exceptions' fates when none is given
@@ -93,6 +94,27 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if err != nil {
 		return nil, err
 	}
+	d := cert.SplitDepth(r.j)
+	levels := min(bottomLevels, r.j-d)
+	table := buildBottom(r, levels)
+	var jf *joinFinder
+	if p.Joins {
+		if r.j != r.k {
+			return nil, fmt.Errorf("joins need j = k (here j = %d, k = %d)", r.j, r.k)
+		}
+		if jf, err = newJoinFinder(r); err != nil {
+			return nil, err
+		}
+		h.Joins = true
+		// The header counts the joined survivors. A whole certificate
+		// learns the count as it goes and rewrites its header at the end;
+		// a shard's header must name it first, so a shard counts them all.
+		if o.Shard != nil {
+			if h.Joined, err = jf.count(ctx, o.Workers, table, levels); err != nil {
+				return nil, err
+			}
+		}
+	}
 	hb, err := h.Marshal()
 	if err != nil {
 		return nil, err
@@ -102,7 +124,11 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	var cw *cert.Writer
 	if o.Shard != nil {
 		var count int
-		cw, first, count, err = shardWriter(w, cert.KindSieve, hb, h.Chunks, o.Shard)
+		kind := byte(cert.KindSieve)
+		if h.Joins {
+			kind = cert.KindJoins
+		}
+		cw, first, count, err = shardWriter(w, kind, hb, h.Chunks, o.Shard)
 		last = first + count
 	} else {
 		cw, err = cert.NewWriter(w, hb)
@@ -112,7 +138,6 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	}
 	want := func(rec int) bool { return rec >= first && rec < last }
 
-	d := cert.SplitDepth(r.j)
 	total := newTally(r.j)
 
 	// Chunk 0: the top of the trie. Its stubs are generated again below,
@@ -130,8 +155,6 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	top.tally.open = 0 // the stubs are not survivors; their subtrees count
 	total.add(top.tally)
 
-	levels := min(bottomLevels, r.j-d)
-	table := buildBottom(r, levels)
 	workers := o.Workers
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
@@ -161,11 +184,20 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 		g.Go(func() error {
 			for st := range jobs {
 				e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
-				e.node(d, st.s, st.v)
+				var jw *cert.JoinWriter
+				if jf != nil {
+					jw = jf.chunk(&e, st, d)
+				} else {
+					e.node(d, st.s, st.v)
+				}
 				if e.w.Len() >= 1<<32 || e.w.Len()/8 > cert.MaxRecordBytes-64 {
 					return fmt.Errorf("emit: the chunk below class %d mod 2^%d has %d code bits, more than a record holds", st.res, d, e.w.Len())
 				}
 				rec := cert.Chunk{Residue: st.res, From: d, To: r.j, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
+				if jw != nil {
+					rec = jw.AppendTo(rec)
+					e.tally.joined = jw.Joined()
+				}
 				st.out <- chunkOut{rec: rec, leaf: cert.LeafHash(rec), tally: e.tally}
 			}
 			return nil
@@ -198,6 +230,16 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 		return nil, err
 	}
 	if o.Shard == nil { // a shard holds only part of what the counts add up
+		if jf != nil {
+			h.Joined = total.joined
+			hb, err := h.Marshal()
+			if err == nil {
+				err = cw.SetHeader(hb)
+			}
+			if err != nil {
+				return nil, err
+			}
+		}
 		if err := r.agree(h, total); err != nil {
 			return nil, err
 		}

@@ -12,12 +12,14 @@ import "descent/cert"
 type tally struct {
 	open   uint64   // classes open at the walk's last depth
 	closed []uint64 // closed[t]: classes closing at step t
+	joined uint64   // survivors joined to a smaller residue
 }
 
 func newTally(j int) tally { return tally{closed: make([]uint64, j+1)} }
 
 func (t *tally) add(o tally) {
 	t.open += o.open
+	t.joined += o.joined
 	for i, c := range o.closed {
 		t.closed[i] += c
 	}

@@ -90,13 +90,15 @@ func BenchmarkPlainCount(b *testing.B) {
 	}
 }
 
-func emitFile(b *testing.B, k int, path string) *emit.Result {
+func emitFile(b *testing.B, k int, path string) *emit.Result { return emitSieve(b, k, path, false) }
+
+func emitSieve(b *testing.B, k int, path string, joins bool) *emit.Result {
 	f, err := os.Create(path)
 	if err != nil {
 		b.Fatal(err)
 	}
 	defer f.Close()
-	res, err := emit.Sieve(context.Background(), f, emit.SieveParams{Map: cert.Collatz, K: k, J: k}, emit.Options{})
+	res, err := emit.Sieve(context.Background(), f, emit.SieveParams{Map: cert.Collatz, K: k, J: k, Joins: joins}, emit.Options{})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -114,6 +116,37 @@ func BenchmarkEmit(b *testing.B) {
 			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/trieNodes(res.Header), "ns/node")
 			b.ReportMetric(8*float64(res.Size)/float64(res.Header.Survivors), "bits/survivor")
 		})
+	}
+}
+
+// BenchmarkJoins emits and checks sieves with and without joins at k = 28
+// and 32 on all cores; the joins' cost is the ratio of the medians.
+//
+//	go test ./cmd/descent -run '^$' -bench Joins -benchtime 5x -count 5
+func BenchmarkJoins(b *testing.B) {
+	for _, k := range []int{28, 32} {
+		for _, joins := range []bool{false, true} {
+			name := fmt.Sprintf("k=%d/plain", k)
+			if joins {
+				name = fmt.Sprintf("k=%d/joins", k)
+			}
+			path := filepath.Join(b.TempDir(), "sieve.dcert")
+			b.Run(name+"/emit", func(b *testing.B) {
+				var res *emit.Result
+				for range b.N {
+					res = emitSieve(b, k, path, joins)
+				}
+				b.ReportMetric(8*float64(res.Size)/float64(res.Header.Survivors), "bits/survivor")
+				b.ReportMetric(float64(res.Header.Joined)/float64(res.Header.Survivors), "joined/survivor")
+			})
+			b.Run(name+"/check", func(b *testing.B) {
+				for range b.N {
+					if rep := check.File(path, check.Options{}); !rep.Valid {
+						b.Fatal(rep.Err())
+					}
+				}
+			})
+		}
 	}
 }
 

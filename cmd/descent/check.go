@@ -104,6 +104,9 @@ func (c *cli) printReport(rep *check.Report) {
 		}
 		fmt.Fprintf(c.stdout, "%s: valid %s%s\n  root       %s\n", rep.File, what, part, rep.Root)
 		note := "the claims of these records are re-derived, and the header's counts and exceptions (from the map alone); the other records' claims are not"
+		if rep.Joined != "" {
+			note = "the claims of these records, their joins included, are re-derived, and the header's counts and exceptions (from the map alone) except the count of joins, which needs every record; the other records' claims are not"
+		}
 		if strings.HasPrefix(rep.Kind, "range") {
 			note = "the claims of these blocks are re-derived; the other blocks, and the totals, need their own checks"
 		}

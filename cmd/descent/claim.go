@@ -17,7 +17,9 @@ type facts struct {
 	Map        string
 	K, J       int
 	Cap        uint32
-	Survivors  uint64
+	Survivors  uint64 // all survivors, joined or not
+	Joins      bool   // a sieve with joins
+	Joined     uint64 // the survivors joined to smaller residues
 	Closing    []closing
 	Exceptions []excFact
 }
@@ -34,7 +36,7 @@ type excFact struct {
 }
 
 func factsFromHeader(h *cert.SieveHeader) facts {
-	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Survivors: h.Survivors}
+	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined}
 	for t, n := range h.ClosedAt {
 		if n > 0 {
 			f.Closing = append(f.Closing, closing{Step: t + 1, Classes: n})
@@ -53,6 +55,11 @@ func factsFromHeader(h *cert.SieveHeader) facts {
 func factsFromReport(r *check.Report) facts {
 	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap}
 	f.Survivors, _ = strconv.ParseUint(string(r.Survivors), 10, 64)
+	if r.Joined != "" {
+		f.Joins = true
+		f.Joined, _ = strconv.ParseUint(string(r.Joined), 10, 64)
+		f.Survivors, _ = strconv.ParseUint(string(r.SieveSurvivors), 10, 64)
+	}
 	for step, n := range r.ClosedAt {
 		t, _ := strconv.Atoi(step)
 		c, _ := strconv.ParseUint(string(n), 10, 64)
@@ -114,7 +121,18 @@ func (f facts) summary() string {
 	if len(f.Exceptions) > 0 && len(f.Exceptions) <= 3 {
 		s += " (" + f.exceptionList() + ")"
 	}
+	if f.Joins {
+		s += fmt.Sprintf("; %s smaller residues, %d remain to search", plural(int(f.Joined), "survivor joins", "survivors join"), f.Survivors-f.Joined)
+	}
 	return s
+}
+
+// joinText is the claim of the joins, fit to quote.
+func (f facts) joinText() string {
+	return fmt.Sprintf(" Of the survivors, %d join a smaller residue: for such a survivor r there is an r' < r "+
+		"whose first %d steps have as many odd steps as r's and T^%d(r') = T^%d(r), so T^%d(2^%d*q + r) = T^%d(2^%d*q + r') "+
+		"for every q >= 0, and n = 2^%d*q + r reaches what the smaller n - (r - r') reaches. "+
+		"That leaves %d survivor classes to search.", f.Joined, f.K, f.K, f.K, f.K, f.K, f.K, f.K, f.K, f.Survivors-f.Joined)
 }
 
 // sentence is the claim fit to quote.
@@ -135,6 +153,9 @@ func (f facts) sentence() string {
 		s += fmt.Sprintf(" The members at or below their threshold are these %d, decided by direct iteration within %d steps: %s.",
 			len(f.Exceptions), f.Cap, f.exceptionList())
 	}
+	if f.Joins {
+		s += f.joinText()
+	}
 	return s
 }
 
@@ -144,5 +165,14 @@ func (f facts) caveat() string {
 		"it does not show that any number reaches 1 or a cycle: a member that drops below itself is only shown "+
 		"smaller after t steps. It says nothing about the %d survivors beyond step %d, and it is not a proof of "+
 		"the 3n+1 conjecture or of any statement about all integers. A claim about every n below a bound needs, "+
-		"besides this sieve, a search of the survivor classes (a range certificate).", f.J, f.Survivors, f.J)
+		"besides this sieve, a search of the survivor classes (a range certificate).", f.J, f.Survivors, f.J) + f.joinCaveat()
+}
+
+func (f facts) joinCaveat() string {
+	if !f.Joins {
+		return ""
+	}
+	return " A join moves the question from n to a smaller number; it settles n only together with a proof " +
+		"for that smaller number (by strong induction, as a range search supplies). Survivors not listed as joined " +
+		"may still join some residue: finding joins is not exhaustive for every k."
 }

@@ -27,6 +27,8 @@ type showReport struct {
 	Cap        uint32                  `json:"cap"`
 	Chunks     int                     `json:"chunks"`
 	Survivors  check.Num               `json:"survivors"`
+	Joined     check.Num               `json:"joined,omitempty"`
+	Before     check.Num               `json:"sieve_survivors,omitempty"`
 	ClosedAt   map[string]check.Num    `json:"closed_at"`
 	Exceptions []check.ExceptionReport `json:"exceptions"`
 	Claim      string                  `json:"claim"`
@@ -65,6 +67,9 @@ func (c *cli) show(args []string) int {
 		rep := showReport{File: path, Kind: "sieve", Root: root.String(), Map: f.Map, K: f.K, J: f.J, Cap: f.Cap,
 			Chunks: h.Chunks, Survivors: check.Num(fmt.Sprint(f.Survivors)), ClosedAt: map[string]check.Num{},
 			Exceptions: []check.ExceptionReport{}, Claim: f.sentence(), NotProven: f.caveat()}
+		if f.Joins { // survivors: the classes still to search
+			rep.Survivors, rep.Joined, rep.Before = check.Num(fmt.Sprint(f.Survivors-f.Joined)), check.Num(fmt.Sprint(f.Joined)), rep.Survivors
+		}
 		for _, cl := range f.Closing {
 			rep.ClosedAt[fmt.Sprint(cl.Step)] = check.Num(fmt.Sprint(cl.Classes))
 		}
@@ -120,12 +125,19 @@ func wrap(s string, width int, indent string) string {
 
 func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f facts) {
 	w := c.stdout
-	fmt.Fprintf(w, "%s: descent sieve certificate\n\n", path)
+	if f.Joins {
+		fmt.Fprintf(w, "%s: descent sieve certificate with joins\n\n", path)
+	} else {
+		fmt.Fprintf(w, "%s: descent sieve certificate\n\n", path)
+	}
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	fmt.Fprintf(tw, "  root\t%v\n", root)
 	fmt.Fprintf(tw, "  map\t%s\n", f.mapText())
 	fmt.Fprintf(tw, "  modulus\t2^%d (k = %d); classes may close at steps 1..%d (j = %d)\n", f.K, f.K, f.J, f.J)
 	fmt.Fprintf(tw, "  survivors\t%d of the 2^%d residues\n", f.Survivors, f.K)
+	if f.Joins {
+		fmt.Fprintf(tw, "  joined\t%d of the survivors join a smaller residue; %d remain to search\n", f.Joined, f.Survivors-f.Joined)
+	}
 	fmt.Fprintf(tw, "  chunks\t%d: the top of the trie (depths 0..%d) and one per class open at depth %d\n", h.Chunks, cert.SplitDepth(f.J), cert.SplitDepth(f.J))
 	fmt.Fprintf(tw, "  fate cap\t%d steps\n", f.Cap)
 	tw.Flush()

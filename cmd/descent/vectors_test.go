@@ -133,7 +133,7 @@ func classify(b []byte) (decoder, hashes string) {
 		kind, header, first = sh.Whole, sh.WholeHeader, sh.First
 	}
 	switch kind {
-	case cert.KindSieve:
+	case cert.KindSieve, cert.KindJoins:
 		h, err := cert.ParseSieveHeader(header)
 		if err != nil {
 			return "malformed", "malformed"
@@ -141,9 +141,12 @@ func classify(b []byte) (decoder, hashes string) {
 		d := cert.SplitDepth(h.J)
 		parse = func(rec []byte, i int, base int64) error {
 			i += first
-			c, err := cert.ParseChunk(rec, base)
+			c, rest, err := cert.ParseChunkJoins(rec, base)
 			if err != nil {
 				return err
+			}
+			if !h.Joins && len(rest) > 0 {
+				return cert.ErrMalformed
 			}
 			from, to := d, h.J
 			if i == 0 {
@@ -152,7 +155,21 @@ func classify(b []byte) (decoder, hashes string) {
 			if c.From != from || c.To != to {
 				return errDepths
 			}
-			return c.Walk(func(cert.Class) error { return nil })
+			survivors := 0
+			if err := c.Walk(func(cl cert.Class) error {
+				if !cl.Closed && cl.Depth == h.J {
+					survivors++
+				}
+				return nil
+			}); err != nil {
+				return err
+			}
+			if h.Joins && i > 0 {
+				_, err = cert.ParseJoins(rest, survivors, base)
+			} else if len(rest) > 0 {
+				err = cert.ErrMalformed
+			}
+			return err
 		}
 	case cert.KindRange:
 		if _, err := cert.ParseRangeHeader(header); err != nil {
@@ -217,7 +234,7 @@ func showOutcome(b []byte) string {
 		}
 		return "ok"
 	}
-	if rd.Kind == cert.KindSieve {
+	if rd.Kind == cert.KindSieve || rd.Kind == cert.KindJoins {
 		if _, err := cert.ParseSieveHeader(rd.Header); err != nil {
 			return "malformed"
 		}
@@ -259,15 +276,16 @@ func mergeOutcome(data []byte, shard bool, decoder, hashes string) string {
 		return "malformed"
 	}
 	switch {
-	case rd.Kind != cert.KindShard || !shard:
+	case rd.Kind != cert.KindShard:
 		return "refused"
 	case hashes == "malformed":
 		return "malformed"
-	case hashes == "hash":
-		return "refused"
 	}
 	if _, err := cert.ParseShardHeader(rd.Header); err != nil {
 		return "malformed"
+	}
+	if hashes == "hash" || !shard {
+		return "refused"
 	}
 	return "ok"
 }
@@ -292,6 +310,7 @@ func emitGood(t *testing.T, dir string) []good {
 	s4 := mk("sieve-3n+1-k4", "emit", "sieve", "-k", "4")
 	s6 := mk("sieve-5n+1-k6", "emit", "sieve", "-k", "6", "-map", "5n+1", "-cap", "200")
 	r := mk("range-3n+1-k4", "emit", "range", "-sieve", filepath.Join(dir, "sieve-3n+1-k4"), "-from", "1", "-to", "30", "-block", "5")
+	j7 := mk("sieve-3n+1-k7-joins", "emit", "sieve", "-k", "7", "-join")
 	sh0 := mk("shard0", "emit", "sieve", "-k", "8", "-shard", "0/2")
 	sh1 := mk("shard1", "emit", "sieve", "-k", "8", "-shard", "1/2")
 	return []good{
@@ -299,6 +318,7 @@ func emitGood(t *testing.T, dir string) []good {
 		{"range-3n+1-k4-to-30", "sieve-3n+1-k4", "", true, r},
 		{"shard-0of2-3n+1-k8", "", "shard-1of2-3n+1-k8-0000.vec", false, sh0},
 		{"shard-1of2-3n+1-k8", "", "shard-0of2-3n+1-k8-0000.vec", true, sh1},
+		{"sieve-3n+1-k7-joins", "", "", true, j7},
 	}
 }
 
@@ -433,6 +453,46 @@ func generate(t *testing.T) []vector {
 			bad = bytes.Clone(b)
 			copy(bad[hashAt(0, 1):], bad[hashAt(0, 0):hashAt(0, 0)+32])
 			add(g, "a leaf hash duplicated over its neighbour", bad, false, "")
+		}
+	}
+	// Joins: a delta moved by one and a survivor's flag set, with the
+	// hashes recomputed over the false claim.
+	for _, g := range goods {
+		if g.data[9] != cert.KindJoins {
+			continue
+		}
+		header, recs := records(g.data)
+		for i := 1; i < len(recs); i++ {
+			c, rest, _ := cert.ParseChunkJoins(recs[i], 0)
+			open := 0
+			_ = c.Walk(func(cl cert.Class) error {
+				if !cl.Closed {
+					open++
+				}
+				return nil
+			})
+			j, err := cert.ParseJoins(rest, open, 0)
+			if err != nil || len(j.Delta) == 0 {
+				continue
+			}
+			forge := func(desc string, f func(j *cert.Joins)) {
+				fj := cert.Joins{Joined: append([]bool(nil), j.Joined...), Delta: append([]int64(nil), j.Delta...)}
+				f(&fj)
+				rs := append([][]byte(nil), recs...)
+				rs[i] = cert.AppendJoins(c.Marshal(), fj)
+				add(g, desc, reseal(bytes.Clone(header), rs), true, "")
+			}
+			forge("a join's delta off by one, hashes recomputed", func(j *cert.Joins) { j.Delta[0]++ })
+			forge("a join's partner above the survivor, hashes recomputed", func(j *cert.Joins) { j.Delta[0] = -j.Delta[0] })
+			forge("a join's flag cleared, its delta kept, hashes recomputed", func(j *cert.Joins) {
+				for x := range j.Joined {
+					if j.Joined[x] {
+						j.Joined[x] = false
+						break
+					}
+				}
+			})
+			break
 		}
 	}
 	// Regressions, named after the bug they found.
