@@ -243,6 +243,10 @@ func summaryOf(s cert.Summary) check.DecodedSummary {
 	for _, c := range s.Cycles {
 		d.Cycles = append(d.Cycles, check.CycleReport{Min: check.Num(c.Min.String()), Count: check.Num(c.Count.String())})
 	}
+	d.Rules = []string{}
+	for _, c := range s.Rules {
+		d.Rules = append(d.Rules, c.String())
+	}
 	return d
 }
 
@@ -253,7 +257,10 @@ func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decod
 	}
 	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Offsets: rd.Offs,
 		Range: &check.DecodedRange{SieveRoot: h.SieveRoot, From: h.Lo.String(), To: h.Hi.String(), BlockExp: h.E,
-			Totals: summaryOf(h.Totals), SieveK: h.K, Count: h.Blocks}}
+			Totals: summaryOf(h.Totals), SieveK: h.K, Count: h.Blocks, Rules: []string{}}}
+	for _, r := range h.Rules {
+		d.Range.Rules = append(d.Range.Rules, r.String())
+	}
 	for _, l := range rd.Levels {
 		hs := make([][32]byte, len(l))
 		for i := range l {

@@ -47,7 +47,66 @@ type Summary struct {
 
 	Records []Point      // stopping-time records, increasing in n and in sigma
 	Cycles  []CycleCount // increasing in Min
+
+	// Rules[i]: the numbers of survivor classes justified by predecessor
+	// rule i of the header, not searched (and not in the counts above, nor
+	// in the stopping-time figures). One count per rule.
+	Rules []*big.Int
 }
+
+// MaxRules bounds the predecessor rules of a range certificate.
+const MaxRules = 16
+
+// Rule is a predecessor rule (SPEC.md, section 9): for every q >= 0 the
+// number n = M*q + C has the smaller predecessor m = Mp*q + Cp with
+// T^Steps(m) = n, the parity of every step fixed by the class.
+type Rule struct {
+	M, C   uint64
+	Mp, Cp uint64
+	Steps  int
+}
+
+func (r Rule) String() string {
+	return fmt.Sprintf("%d*q+%d <- %d*q+%d in %d steps", r.M, r.C, r.Mp, r.Cp, r.Steps)
+}
+
+// Prove checks the rule for every q at once, by affine arithmetic: it
+// follows m = Mp*q + Cp as A*q + B for Steps steps, requiring A even before
+// each step (so that the parity of A*q + B is that of B for every q), and
+// the end to be M*q + C; and m < n for every q >= 0, with m >= 1.
+func (r Rule) Prove(m Map) error {
+	switch {
+	case r.M == 0 || r.Mp == 0 || r.Cp == 0:
+		return fmt.Errorf("rule %v: M, M' and c' must be positive", r)
+	case r.Mp > r.M || r.Cp >= r.C:
+		return fmt.Errorf("rule %v: the predecessor is not smaller for every q >= 0 (want M' <= M and c' < c)", r)
+	case r.Steps < 1 || r.Steps > MaxRuleSteps:
+		return fmt.Errorf("rule %v: want 1 to %d steps", r, MaxRuleSteps)
+	}
+	a, b := big.NewInt(int64(m.A)), big.NewInt(int64(m.B))
+	A, B := new(big.Int).SetUint64(r.Mp), new(big.Int).SetUint64(r.Cp)
+	for t := 1; t <= r.Steps; t++ {
+		if A.Bit(0) == 1 {
+			return fmt.Errorf("rule %v: before step %d the value is %v*q + %v, whose parity depends on q", r, t, A, B)
+		}
+		if B.Bit(0) == 1 {
+			A.Mul(A, a)
+			B.Mul(B, a).Add(B, b)
+		}
+		A.Rsh(A, 1)
+		B.Rsh(B, 1)
+	}
+	if !A.IsUint64() || A.Uint64() != r.M || !B.IsUint64() || B.Uint64() != r.C {
+		return fmt.Errorf("rule %v: after %d steps the predecessor is %v*q + %v, not %d*q + %d", r, r.Steps, A, B, r.M, r.C)
+	}
+	return nil
+}
+
+// MaxRuleSteps and MaxRuleModulus bound the fields of a predecessor rule.
+const (
+	MaxRuleSteps   = 64
+	MaxRuleModulus = 1 << 62
+)
 
 // Block is one record of a range certificate.
 type Block struct {
@@ -64,6 +123,7 @@ type RangeHeader struct {
 	E         int // blocks are aligned intervals of 2^E numbers
 	Cap       uint32
 	Lo, Hi    *big.Int
+	Rules     []Rule // predecessor rules, tried in order
 	Blocks    int
 	Totals    Summary
 }
@@ -126,6 +186,23 @@ func (s *Summary) appendCounts(b []byte, wide bool) ([]byte, error) {
 			b = appendU128(b, c.Count)
 		} else {
 			b = binary.BigEndian.AppendUint64(b, c.Count.Uint64())
+		}
+	}
+	if len(s.Rules) > MaxRules {
+		return nil, fmt.Errorf("cert: %d rule counts exceed the cap of %d", len(s.Rules), MaxRules)
+	}
+	b = append(b, byte(len(s.Rules)))
+	for _, c := range s.Rules {
+		if wide {
+			if !fits(c, 128) {
+				return nil, fmt.Errorf("cert: rule count %v does not fit 128 bits", c)
+			}
+			b = appendU128(b, c)
+		} else {
+			if !fits(c, 64) {
+				return nil, fmt.Errorf("cert: block rule count %v does not fit 64 bits", c)
+			}
+			b = binary.BigEndian.AppendUint64(b, c.Uint64())
 		}
 	}
 	return b, nil
@@ -202,6 +279,18 @@ func (d *decoder) summary(wide bool) Summary {
 			c.Count = new(big.Int).SetUint64(d.u64("cycle count"))
 		}
 		s.Cycles = append(s.Cycles, c)
+	}
+	nr := d.u8("rule count")
+	if d.err == nil && nr > MaxRules {
+		d.err = formatErr(int64(d.off-1), "%d rule counts exceed the cap of %d", nr, MaxRules)
+	}
+	s.Rules = []*big.Int{}
+	for i := 0; i < int(nr) && d.err == nil; i++ {
+		if wide {
+			s.Rules = append(s.Rules, d.u128("rule count"))
+		} else {
+			s.Rules = append(s.Rules, new(big.Int).SetUint64(d.u64("rule count")))
+		}
 	}
 	return s
 }
@@ -281,6 +370,13 @@ func (h *RangeHeader) Marshal() ([]byte, error) {
 	body = append(body, byte(h.K), byte(h.E))
 	body = binary.BigEndian.AppendUint32(body, h.Cap)
 	body = appendNat(appendNat(body, h.Lo), h.Hi)
+	body = append(body, byte(len(h.Rules)))
+	for _, r := range h.Rules {
+		for _, x := range []uint64{r.M, r.C, r.Mp, r.Cp} {
+			body = binary.BigEndian.AppendUint64(body, x)
+		}
+		body = append(body, byte(r.Steps))
+	}
 	body, err := h.Totals.appendCounts(body, true)
 	if err != nil {
 		return nil, err
@@ -301,6 +397,17 @@ func (h *RangeHeader) validate() error {
 		return fmt.Errorf("cap = %d: want k+1 = %d to %d", h.Cap, h.K+1, MaxCap)
 	case h.Lo == nil || h.Hi == nil || h.Lo.Sign() <= 0 || h.Lo.Cmp(h.Hi) >= 0 || natLen(h.Hi) > MaxNatBytes:
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", h.Lo, h.Hi)
+	}
+	if len(h.Rules) > MaxRules {
+		return fmt.Errorf("%d rules: at most %d", len(h.Rules), MaxRules)
+	}
+	for _, r := range h.Rules {
+		if r.Steps < 1 || r.Steps > MaxRuleSteps || r.M == 0 || r.M > MaxRuleModulus || r.C > MaxRuleModulus || r.Mp > MaxRuleModulus || r.Cp > MaxRuleModulus {
+			return fmt.Errorf("rule %v: want 1 to %d steps and M, c, M', c' in 1..2^62 (M > 0)", r, MaxRuleSteps)
+		}
+	}
+	if len(h.Totals.Rules) != len(h.Rules) {
+		return fmt.Errorf("%d rules but %d rule counts in the totals", len(h.Rules), len(h.Totals.Rules))
 	}
 	_, n := BlockSpan(h.Lo, h.Hi, h.E)
 	if !n.IsInt64() || n.Int64() != int64(h.Blocks) || h.Blocks > MaxRecords {
@@ -331,6 +438,16 @@ func ParseRangeHeader(b []byte) (*RangeHeader, error) {
 	h.Cap = d.u32("step cap")
 	h.Lo = d.nat("from")
 	h.Hi = d.nat("to")
+	nr := d.u8("rule count")
+	if d.err == nil && nr > MaxRules {
+		d.err = formatErr(int64(d.off-1), "%d rules exceed the cap of %d", nr, MaxRules)
+	}
+	h.Rules = []Rule{}
+	for i := 0; i < int(nr) && d.err == nil; i++ {
+		r := Rule{M: d.u64("rule modulus"), C: d.u64("rule class"), Mp: d.u64("predecessor modulus"), Cp: d.u64("predecessor class")}
+		r.Steps = int(d.u8("rule steps"))
+		h.Rules = append(h.Rules, r)
+	}
 	h.Totals = d.summary(true)
 	if d.err != nil {
 		return nil, d.err

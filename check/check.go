@@ -148,6 +148,14 @@ func (r *Report) describeRange(f *file) {
 	t := &h.tot
 	r.Counts = &RangeCounts{Sieve: Num(t.counts[0].String()), Search: Num(t.counts[1].String()), Small: Num(t.counts[2].String()),
 		Cycle: Num(t.counts[3].String()), Undecided: Num(t.counts[4].String()), StoppingTimeSum: Num(t.sum.String())}
+	r.Counts.Rules = []RuleReport{}
+	for i, x := range h.rules {
+		rr := RuleReport{Class: fmt.Sprintf("%d*q+%d", x.m, x.c), Predecessor: fmt.Sprintf("%d*q+%d", x.mp, x.cp), Steps: x.steps, Numbers: "0"}
+		if i < len(t.rules) {
+			rr.Numbers = Num(t.rules[i].String())
+		}
+		r.Counts.Rules = append(r.Counts.Rules, rr)
+	}
 	r.Records, r.MaxStoppingTime, r.Cycles = describeSummary(t)
 	r.Undecided = []Num{}
 }

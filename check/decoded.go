@@ -36,6 +36,7 @@ type DecodedRange struct {
 	BlockExp      int
 	Totals        DecodedSummary
 	SieveK, Count int
+	Rules         []string // each rule as "M*q+c <- M'*q+c' in i steps"
 }
 
 // DecodedSummary is a block's or the range's summary, numbers in decimal.
@@ -46,6 +47,7 @@ type DecodedSummary struct {
 	MaxAt    string
 	Records  []RecordReport
 	Cycles   []CycleReport
+	Rules    []string // numbers justified by each rule, in decimal
 }
 
 // DecodedBlock is one block record.
@@ -64,6 +66,10 @@ func decodedSummary(s *summary) DecodedSummary {
 		d.MaxAt = s.maxAt.String()
 	}
 	d.Records, _, d.Cycles = describeSummary(s)
+	d.Rules = []string{}
+	for _, c := range s.rules {
+		d.Rules = append(d.Rules, c.String())
+	}
 	return d
 }
 
@@ -197,7 +203,10 @@ func decodeRange(f *file, base int) (*Decoded, error) {
 	h := f.rng
 	d := &Decoded{Header: f.header, Records: f.records, Map: mapName(h.a, h.b), K: h.k, Cap: h.cap, Tree: f.tree, Offsets: f.offsets,
 		Range: &DecodedRange{SieveRoot: h.sieveRoot, From: h.lo.String(), To: h.hi.String(), BlockExp: h.e, Totals: decodedSummary(&h.tot),
-			SieveK: h.k, Count: h.blocks()}}
+			SieveK: h.k, Count: h.blocks(), Rules: []string{}}}
+	for _, r := range h.rules {
+		d.Range.Rules = append(d.Range.Rules, r.String())
+	}
 	for i := 0; ; i++ {
 		rec, fl := f.record()
 		if fl != nil {

@@ -166,6 +166,9 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 		if fl := rangeSieve(hf.rng, rep, o); fl != nil {
 			return rep.fail(fl)
 		}
+		if fl := proveRules(hf.rng); fl != nil {
+			return rep.fail(fl)
+		}
 		s = newSearcher(hf.rng)
 	}
 	for g := from; g < upto; g++ {

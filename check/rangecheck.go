@@ -18,6 +18,9 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 	if fl := rangeSieve(h, rep, o); fl != nil {
 		return rep.fail(fl)
 	}
+	if fl := proveRules(h); fl != nil {
+		return rep.fail(fl)
+	}
 
 	base := 0 // the global index of the file's first block
 	if f.shard != nil {
@@ -53,6 +56,9 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		zero := summary{sum: new(big.Int)}
 		for i := range zero.counts {
 			zero.counts[i] = new(big.Int)
+		}
+		for range h.rules {
+			zero.rules = append(zero.rules, new(big.Int))
 		}
 		if d := diffSummary(&zero, &h.tot); d != "" {
 			return rep.fail(invalid("count", Where{Claim: "totals in a shard"}, "a shard's copy of the whole's header must have zero totals: %s", d))
@@ -191,10 +197,16 @@ func checkTotals(h *rangeHeader, blocks []*blockRec) *Failure {
 	for i := range want.counts {
 		want.counts[i] = new(big.Int)
 	}
+	for range h.rules {
+		want.rules = append(want.rules, new(big.Int))
+	}
 	cycles := map[string]*cycleCount{}
 	for _, b := range blocks {
 		for i, c := range b.sum.counts {
 			want.counts[i].Add(want.counts[i], c)
+		}
+		for i, c := range b.sum.rules {
+			want.rules[i].Add(want.rules[i], c)
 		}
 		want.sum.Add(want.sum, b.sum.sum)
 		if b.sum.maxSigma > want.maxSigma {
@@ -223,7 +235,8 @@ func checkTotals(h *rangeHeader, blocks []*blockRec) *Failure {
 	return nil
 }
 
-// addsUp checks that a block's five counts add up to the numbers in it.
+// addsUp checks that a block has a count for each rule of the header and
+// that its counts add up to the numbers in it.
 func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
 	x0 := new(big.Int).Add(h.first, big.NewInt(int64(i)))
 	x0.Lsh(x0, uint(h.e))
@@ -235,8 +248,14 @@ func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
 		hi.Set(h.hi)
 	}
 	size := hi.Sub(hi, lo)
+	if len(b.sum.rules) != len(h.rules) {
+		return malformed(at, "block %d has %d rule counts; the header has %d predecessor rules", i, len(b.sum.rules), len(h.rules))
+	}
 	sum := new(big.Int)
 	for _, c := range b.sum.counts {
+		sum.Add(sum, c)
+	}
+	for _, c := range b.sum.rules {
 		sum.Add(sum, c)
 	}
 	if sum.Cmp(size) != 0 {
@@ -268,6 +287,14 @@ func diffSummary(want, got *summary) string {
 	for i := range want.counts {
 		if want.counts[i].Cmp(got.counts[i]) != 0 {
 			return fmt.Sprintf("%s: expected %v, found %v", countNames[i], want.counts[i], got.counts[i])
+		}
+	}
+	if len(want.rules) != len(got.rules) {
+		return fmt.Sprintf("rule counts: expected %d, found %d", len(want.rules), len(got.rules))
+	}
+	for i := range want.rules {
+		if want.rules[i].Cmp(got.rules[i]) != 0 {
+			return fmt.Sprintf("numbers justified by predecessor rule %d: expected %v, found %v", i, want.rules[i], got.rules[i])
 		}
 	}
 	if want.sum.Cmp(got.sum) != 0 {

@@ -29,6 +29,7 @@ type summary struct {
 	maxAt    *big.Int // nil if no number drops
 	records  []point
 	cycles   []cycleCount
+	rules    []*big.Int // numbers justified by each predecessor rule
 }
 
 var countNames = [5]string{"numbers justified by the sieve", "numbers found to drop by search",
@@ -41,6 +42,7 @@ type rangeHeader struct {
 	k, e      int
 	cap       uint32
 	lo, hi    *big.Int
+	rules     []rule
 	first     *big.Int // index of the first block: lo >> e
 	tot       summary
 }
@@ -109,6 +111,19 @@ func (p *fields) summaryOf(wide bool) summary {
 		}
 		s.cycles = append(s.cycles, c)
 	}
+	nr := int(p.byte1("rule counts"))
+	if p.bad == nil && nr > maxRules {
+		p.bad = malformed(int64(preambleLen+p.pos-1), "%d rule counts; the format allows %d", nr, maxRules)
+		return s
+	}
+	s.rules = []*big.Int{}
+	for range nr {
+		if wide {
+			s.rules = append(s.rules, p.u128("rule count"))
+		} else {
+			s.rules = append(s.rules, new(big.Int).SetUint64(p.int64be("rule count")))
+		}
+	}
 	return s
 }
 
@@ -141,6 +156,19 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 	h.cap = p.int32be("step cap")
 	h.lo = p.natural("from")
 	h.hi = p.natural("to")
+	nr := int(p.byte1("rules"))
+	if p.bad == nil && nr > maxRules {
+		return nil, malformed(int64(preambleLen+p.pos-1), "%d predecessor rules; the format allows %d", nr, maxRules)
+	}
+	h.rules = []rule{}
+	for range nr {
+		r := rule{m: p.int64be("rule modulus"), c: p.int64be("rule class"), mp: p.int64be("predecessor modulus"), cp: p.int64be("predecessor class")}
+		r.steps = int(p.byte1("rule steps"))
+		if p.bad == nil && (r.steps < 1 || r.steps > maxRuleSteps || r.m < 1 || r.m > maxRuleModulus || r.c > maxRuleModulus || r.mp > maxRuleModulus || r.cp > maxRuleModulus) {
+			return nil, malformed(int64(preambleLen+p.pos-33), "predecessor rule %v: the format needs 1 to %d steps and M, c, M', c' at most 2^62, M > 0", r, maxRuleSteps)
+		}
+		h.rules = append(h.rules, r)
+	}
 	h.tot = p.summaryOf(true)
 	if p.bad != nil {
 		return nil, p.bad
@@ -166,6 +194,9 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 	last.Rsh(last, uint(h.e)).Sub(last, h.first)
 	if !last.IsInt64() || last.Int64()+1 != int64(records) {
 		return nil, malformed(10, "the preamble declares %d records; [%v, %v) has %v blocks of 2^%d", records, h.lo, h.hi, last.Add(last, big.NewInt(1)), h.e)
+	}
+	if p.bad == nil && len(h.tot.rules) != len(h.rules) {
+		return nil, malformed(int64(preambleLen+p.pos), "%d predecessor rules but %d rule counts in the totals", len(h.rules), len(h.tot.rules))
 	}
 	return h, h.tot.sane(at, "header")
 }

@@ -207,6 +207,7 @@ func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 // block's first number x0.
 type tallies struct {
 	counts   [5]uint64
+	rules    []uint64 // numbers justified by each predecessor rule
 	sum      *big.Int
 	maxSigma uint32
 	maxAt    uint64
@@ -221,8 +222,8 @@ type offPoint struct {
 	sigma uint32
 }
 
-func newTallies() *tallies {
-	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*cycleCount{}}
+func newTallies(rules int) *tallies {
+	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*cycleCount{}, rules: make([]uint64, rules)}
 }
 
 func (t *tallies) drop(off uint64, sigma uint32, rule int) {
@@ -341,6 +342,10 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		m := s.pow[odd].Uint64()
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
+			if r := s.h.ruleFor(num); r >= 0 {
+				p.t.rules[r]++
+				continue
+			}
 			// x = m*(num >> k) + tk, in 128 bits; a carry out means the
 			// general path.
 			h, l := bits.Mul64(m, num>>s.k)
@@ -361,6 +366,10 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 	}
 	for ; n > 0; n, off = n-1, off+1<<s.k {
 		num := new(big.Int).Add(p.x0, new(big.Int).SetUint64(off))
+		if r := s.h.ruleForBig(num); r >= 0 {
+			p.t.rules[r]++
+			continue
+		}
 		x := new(big.Int).Rsh(num, uint(s.k))
 		x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
 		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), 1)
@@ -389,13 +398,13 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	}
 
 	stop := new(atomic.Bool)
-	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(), stop: stop}}
+	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.rules)), stop: stop}}
 	small := parts[0]
 	for off := small.from; off < small.to && small.t.counts[4] <= maxList; off++ {
 		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
 		small.t.note(off, s.decide(n, fromBig(n), 0), 2)
 	}
-	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), stop: stop}
+	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), stop: stop}
 	parts = append(parts, top)
 	top.classes(0, 0, wide{}, 0, s.d)
 	var wg sync.WaitGroup
@@ -403,7 +412,7 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
 	fast := end.BitLen() <= 64
 	for _, res := range s.stubs {
-		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(), fast: fast, stop: stop}
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), fast: fast, stop: stop}
 		if fast {
 			p.x0u = x0.Uint64()
 		}
@@ -429,6 +438,7 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 	b := &blockRec{index: index}
 	sum := &b.sum
 	var counts [5]uint64
+	var rules []uint64
 	total := new(big.Int)
 	var pts []offPoint
 	var maxSigma uint32
@@ -440,6 +450,12 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 		t := p.t
 		for i, c := range t.counts {
 			counts[i] += c
+		}
+		if rules == nil {
+			rules = make([]uint64, len(t.rules))
+		}
+		for i, c := range t.rules {
+			rules[i] += c
 		}
 		total.Add(total, t.sum)
 		pts = append(pts, t.points...)
@@ -470,6 +486,10 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 	abs := func(off uint64) *big.Int { return new(big.Int).Add(x0, new(big.Int).SetUint64(off)) }
 	for i, c := range counts {
 		sum.counts[i] = new(big.Int).SetUint64(c)
+	}
+	sum.rules = []*big.Int{}
+	for _, c := range rules {
+		sum.rules = append(sum.rules, new(big.Int).SetUint64(c))
 	}
 	sum.sum = total
 	if maxSigma > 0 {

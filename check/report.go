@@ -182,6 +182,19 @@ type RangeCounts struct {
 	Cycle           Num `json:"cycle"`     // reach a cycle without dropping
 	Undecided       Num `json:"undecided"` // neither within the cap
 	StoppingTimeSum Num `json:"stopping_time_sum"`
+	// Rules: the numbers of survivor classes justified by each predecessor
+	// rule instead of a search; they have no stopping time in the figures.
+	Rules []RuleReport `json:"rules"`
+}
+
+// RuleReport is a predecessor rule with the numbers it justified: every
+// n = Class (q >= 0) has the smaller predecessor Predecessor, which reaches
+// n in Steps steps.
+type RuleReport struct {
+	Class       string `json:"class"`
+	Predecessor string `json:"predecessor"`
+	Steps       int    `json:"steps"`
+	Numbers     Num    `json:"numbers"`
 }
 
 // RecordReport is a number with its stopping time.

@@ -125,7 +125,12 @@ func Merge(w io.WriterAt, shards []ShardInput) (*RangeResult, cert.Hash, error) 
 		if err != nil {
 			return nil, cert.Hash{}, err
 		}
-		h.Totals = totals(blocks)
+		for _, b := range blocks {
+			if len(b.Rules) != len(h.Rules) {
+				return nil, cert.Hash{}, fmt.Errorf("block %d has %d rule counts; the header has %d predecessor rules", b.Index, len(b.Rules), len(h.Rules))
+			}
+		}
+		h.Totals = totals(blocks, len(h.Rules))
 		if header, err = h.Marshal(); err != nil {
 			return nil, cert.Hash{}, err
 		}

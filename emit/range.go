@@ -23,6 +23,9 @@ type RangeParams struct {
 	Lo, Hi    *big.Int
 	E         int
 	Cap       uint32
+	// Rules are predecessor rules (SPEC.md, section 9), tried in order on
+	// the numbers of survivor classes before any search.
+	Rules []cert.Rule
 }
 
 // RangeOptions tune a run without changing its output.
@@ -81,6 +84,17 @@ func NormalizeRange(p *RangeParams) error {
 	if _, n := cert.BlockSpan(p.Lo, p.Hi, p.E); !n.IsInt64() || n.Int64() > cert.MaxRecords {
 		return fmt.Errorf("the range has %v blocks of 2^%d; the format allows %d: use a larger -block", n, p.E, cert.MaxRecords)
 	}
+	if len(p.Rules) > cert.MaxRules {
+		return fmt.Errorf("%d predecessor rules: the format allows %d", len(p.Rules), cert.MaxRules)
+	}
+	for _, rule := range p.Rules {
+		if err := rule.Prove(h.Map); err != nil {
+			return err
+		}
+		if rule.M > cert.MaxRuleModulus || rule.C > cert.MaxRuleModulus {
+			return fmt.Errorf("rule %v: the format allows moduli and classes up to 2^62", rule)
+		}
+	}
 	return nil
 }
 
@@ -109,6 +123,7 @@ type ranger struct {
 	p     RangeParams
 	k, d  int
 	small *big.Int // N0: numbers up to it are iterated directly
+	inc   []uint64 // 2^k mod each rule's modulus
 	stubs []uint64 // residues of the classes open at depth d, in trie order
 	first *big.Int // index of the first block
 }
@@ -124,6 +139,9 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	}
 	r.work = newMeter(ctx)
 	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
+	for _, rule := range p.Rules {
+		g.inc = append(g.inc, new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(r.k)), new(big.Int).SetUint64(rule.M)).Uint64())
+	}
 	gen := encoder{r: r, end: g.d, tb: -1, tally: newTally(r.j)}
 	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
 	if err := gen.top(0, 0, 0, 0); err != nil {
@@ -135,7 +153,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	from, upto := 0, total // the blocks this run writes
 	var cw *cert.Writer
 	if o.Shard != nil {
-		h := rangeHeader(r, p, total, zeroSummary())
+		h := rangeHeader(r, p, total, zeroSummary(len(p.Rules)))
 		hb, err := h.Marshal()
 		if err != nil {
 			return nil, err
@@ -187,7 +205,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		}
 	}
 
-	h := rangeHeader(r, p, total, totals(blocks))
+	h := rangeHeader(r, p, total, totals(blocks, len(p.Rules)))
 	if cw == nil {
 		hb, err := h.Marshal()
 		if err != nil {
@@ -211,12 +229,16 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 
 func rangeHeader(r *rules, p RangeParams, blocks int, t cert.Summary) *cert.RangeHeader {
 	return &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap,
-		Lo: p.Lo, Hi: p.Hi, Blocks: blocks, Totals: t}
+		Lo: p.Lo, Hi: p.Hi, Rules: append([]cert.Rule{}, p.Rules...), Blocks: blocks, Totals: t}
 }
 
-func zeroSummary() cert.Summary {
+func zeroSummary(rules int) cert.Summary {
 	z := func() *big.Int { return new(big.Int) }
-	return cert.Summary{Sieve: z(), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z()}
+	s := cert.Summary{Sieve: z(), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z(), Rules: []*big.Int{}}
+	for range rules {
+		s.Rules = append(s.Rules, z())
+	}
+	return s
 }
 
 // span returns the numbers block i covers: [lo, hi).
@@ -251,6 +273,30 @@ type unit struct {
 	acc      acc
 	jobs     []jumpJob // numbers waiting for the two-lane search
 	offs     []uint64  // and their offsets
+	x0mod    []uint64  // x0 mod each rule's modulus
+	rem      []uint64  // the current number mod each rule's modulus
+}
+
+// ruleStart sets the rule residues for the number at offset off.
+func (u *unit) ruleStart(off uint64) {
+	for i, rule := range u.g.p.Rules {
+		u.rem[i] = (u.x0mod[i] + off%rule.M) % rule.M
+	}
+}
+
+// ruleNext says which rule, if any, justifies the number at offset off
+// (-1: none), and moves the residues on by 2^k to the next member.
+func (u *unit) ruleNext(off uint64) int {
+	match := -1
+	for i, rule := range u.g.p.Rules {
+		if match < 0 && u.rem[i] == rule.C%rule.M && (!u.fast || u.x0u+off >= rule.C) {
+			match = i
+		}
+		if u.rem[i] += u.g.inc[i]; u.rem[i] >= rule.M {
+			u.rem[i] -= rule.M
+		}
+	}
+	return match
 }
 
 // block computes the summary of block i.
@@ -270,10 +316,14 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 
 	units := make([]*unit, 0, len(g.stubs)+2)
 	newUnit := func(a, b uint64) *unit {
-		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k),
+		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k, len(g.p.Rules)),
 			jobs: make([]jumpJob, 0, 512), offs: make([]uint64, 0, 512)}
 		if fast {
 			u.x0u = x0.Uint64()
+		}
+		for _, rule := range g.p.Rules {
+			u.x0mod = append(u.x0mod, new(big.Int).Mod(x0, new(big.Int).SetUint64(rule.M)).Uint64())
+			u.rem = append(u.rem, 0)
 		}
 		units = append(units, u)
 		return u
@@ -347,8 +397,18 @@ func (u *unit) closed(res uint64, t int) {
 func (u *unit) survivor(res uint64, s int, tk exact) {
 	n, off := members(res, u.g.k, u.from, u.to)
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
+	rules := len(u.g.p.Rules) > 0
+	if rules {
+		u.ruleStart(off)
+	}
 	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil {
 		for ; n > 0; n, off = n-1, off+1<<k {
+			if rules {
+				if i := u.ruleNext(off); i >= 0 {
+					u.acc.rules[i]++
+					continue
+				}
+			}
 			num := u.x0u + off
 			x, ok := r.powU[s].mul64(num >> k)
 			if ok {
@@ -367,6 +427,12 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 		return
 	}
 	for ; n > 0; n, off = n-1, off+1<<k {
+		if rules {
+			if i := u.ruleNext(off); i >= 0 {
+				u.acc.rules[i]++
+				continue
+			}
+		}
 		var o outcome
 		if u.fast && tk.b == nil && r.powFits[s] {
 			num := u.x0u + off
@@ -426,6 +492,7 @@ const (
 // acc accumulates a summary over offsets within one block.
 type acc struct {
 	count    [5]uint64
+	rules    []uint64 // numbers justified by each predecessor rule
 	sum      u128
 	maxSigma uint32
 	maxAt    uint64
@@ -446,8 +513,8 @@ type cycleAcc struct {
 	count uint64
 }
 
-func newAcc(k int) acc {
-	return acc{first: make([]uint64, k+1), hasFirst: make([]bool, k+1), cycles: map[string]*cycleAcc{}}
+func newAcc(k, rules int) acc {
+	return acc{first: make([]uint64, k+1), hasFirst: make([]bool, k+1), cycles: map[string]*cycleAcc{}, rules: make([]uint64, rules)}
 }
 
 func (a *acc) addSigma(n, sigma uint64) {
@@ -507,12 +574,15 @@ func (a *acc) point(off uint64, sigma uint32) {
 
 // merge adds up the units of block i into its record.
 func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
-	total := newAcc(len(units[0].acc.first) - 1)
+	total := newAcc(len(units[0].acc.first)-1, len(units[0].acc.rules))
 	var pts []point
 	for _, u := range units {
 		a := &u.acc
 		for c := range a.count {
 			total.count[c] += a.count[c]
+		}
+		for i, c := range a.rules {
+			total.rules[i] += c
 		}
 		total.sum, _ = total.sum.add(a.sum)
 		pts = append(pts, a.stairs...)
@@ -541,6 +611,10 @@ func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
 	for c, p := range counts {
 		*p = new(big.Int).SetUint64(total.count[c])
 	}
+	s.Rules = []*big.Int{}
+	for _, c := range total.rules {
+		s.Rules = append(s.Rules, new(big.Int).SetUint64(c))
+	}
 	s.SigmaSum = total.sum.big()
 	if total.maxSigma > 0 {
 		s.MaxSigma, s.MaxAt = total.maxSigma, abs(total.maxAt)
@@ -565,13 +639,16 @@ func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
 
 // totals sums block summaries into the header's: records and the maximum
 // are taken in block order, so the first of equals wins.
-func totals(blocks []*cert.Block) cert.Summary {
-	s := zeroSummary()
+func totals(blocks []*cert.Block, rules int) cert.Summary {
+	s := zeroSummary(rules)
 	cycles := map[string]*cert.CycleCount{}
 	for _, b := range blocks {
 		for _, pair := range [][2]*big.Int{{s.Sieve, b.Sieve}, {s.Search, b.Search}, {s.Small, b.Small},
 			{s.Cycle, b.Cycle}, {s.Undecided, b.Undecided}, {s.SigmaSum, b.SigmaSum}} {
 			pair[0].Add(pair[0], pair[1])
+		}
+		for i, c := range b.Rules {
+			s.Rules[i].Add(s.Rules[i], c)
 		}
 		if b.MaxSigma > s.MaxSigma {
 			s.MaxSigma, s.MaxAt = b.MaxSigma, b.MaxAt

@@ -7,6 +7,7 @@ import (
 	"math/bits"
 	"os"
 	"path/filepath"
+	"runtime"
 	"testing"
 
 	"descent/cert"
@@ -218,6 +219,52 @@ func BenchmarkRange(b *testing.B) {
 				perCore := float64(span.Int64()) * float64(b.N) / b.Elapsed().Seconds() / float64(w)
 				b.ReportMetric(perCore, "numbers/core-s")
 				b.ReportMetric(perCore/(1<<32), "2^32/core-s")
+			})
+		}
+	}
+}
+
+// BenchmarkRangeRules is BenchmarkRange on all cores with and without the
+// predecessor rules of emit.AutoRules: the covered-numbers rate of each.
+//
+//	go test ./cmd/descent -run '^$' -bench RangeRules -benchtime 1x -count 5
+func BenchmarkRangeRules(b *testing.B) {
+	for _, k := range []int{24, 32} {
+		dir := b.TempDir()
+		sieve := filepath.Join(dir, "sieve.dcert")
+		res := emitFile(b, k, sieve)
+		lo := new(big.Int).Lsh(big.NewInt(1), 60)
+		span := new(big.Int).Lsh(big.NewInt(1), uint(k+2))
+		for _, rules := range []bool{false, true} {
+			name := fmt.Sprintf("k=%d/rules=none", k)
+			p := emit.RangeParams{Sieve: res.Header, SieveRoot: res.Root, Lo: lo, Hi: new(big.Int).Add(lo, span), E: k + 4}
+			if rules {
+				name = fmt.Sprintf("k=%d/rules=auto", k)
+				p.Rules = emit.AutoRules(res.Header.Map)
+			}
+			b.Run(name, func(b *testing.B) {
+				var out *emit.RangeResult
+				for range b.N {
+					f, err := os.Create(filepath.Join(dir, "range.dcert"))
+					if err != nil {
+						b.Fatal(err)
+					}
+					if out, err = emit.Range(context.Background(), f, p, emit.RangeOptions{}); err != nil {
+						b.Fatal(err)
+					}
+					f.Close()
+				}
+				w := float64(runtime.GOMAXPROCS(0))
+				perCore := float64(span.Int64()) * float64(b.N) / b.Elapsed().Seconds() / w
+				b.ReportMetric(perCore, "numbers/core-s")
+				b.ReportMetric(perCore/(1<<32), "2^32/core-s")
+				searched, ruled := new(big.Int).Set(out.Header.Totals.Search), new(big.Int)
+				for _, c := range out.Header.Totals.Rules {
+					ruled.Add(ruled, c)
+				}
+				all := new(big.Int).Add(searched, ruled)
+				share, _ := new(big.Rat).SetFrac(ruled, all).Float64()
+				b.ReportMetric(share, "ruled/survivor-number")
 			})
 		}
 	}

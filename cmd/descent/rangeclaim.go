@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"math/big"
 	"strings"
 
 	"descent/cert"
@@ -26,7 +27,14 @@ func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 	t := &h.Totals
 	f := rangeFacts{Map: h.Map.String(), Lo: h.Lo.String(), Hi: h.Hi.String(), SieveRoot: h.SieveRoot.String(), K: h.K, E: h.E, Cap: h.Cap,
 		Counts: check.RangeCounts{Sieve: num(t.Sieve), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
-			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum)}}
+			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []check.RuleReport{}}}
+	for i, r := range h.Rules {
+		rr := check.RuleReport{Class: fmt.Sprintf("%d*q+%d", r.M, r.C), Predecessor: fmt.Sprintf("%d*q+%d", r.Mp, r.Cp), Steps: r.Steps, Numbers: "0"}
+		if i < len(t.Rules) {
+			rr.Numbers = num(t.Rules[i])
+		}
+		f.Counts.Rules = append(f.Counts.Rules, rr)
+	}
 	for _, p := range t.Records {
 		f.Records = append(f.Records, check.RecordReport{N: num(p.N), StoppingTime: p.Sigma})
 	}
@@ -62,6 +70,9 @@ func (f rangeFacts) onlyOne() bool { return len(f.Cycles) == 1 && f.Cycles[0].Mi
 func (f rangeFacts) summary() string {
 	s := fmt.Sprintf("%s over [%s, %s): %s numbers justified by the sieve, %s by search, %s small ones directly",
 		f.Map, f.Lo, f.Hi, f.Counts.Sieve, f.Counts.Search, f.Counts.Small)
+	if len(f.Counts.Rules) > 0 {
+		s += fmt.Sprintf(", %s by %s", f.ruleTotal(), plural(len(f.Counts.Rules), "predecessor rule", "predecessor rules"))
+	}
 	if len(f.Cycles) > 0 {
 		s += fmt.Sprintf("; %s reach a cycle (through %s)", f.Counts.Cycle, f.cycleList())
 	}
@@ -84,9 +95,21 @@ func (f rangeFacts) sentence() string {
 	if f.Map == "3n+1" && (f.onlyOne() || len(f.Cycles) == 0) {
 		target = "1"
 	}
+	if len(f.Counts.Rules) > 0 {
+		var rs []string
+		for _, r := range f.Counts.Rules {
+			rs = append(rs, fmt.Sprintf("n = %s from m = %s in %s", r.Class, r.Predecessor, plural(r.Steps, "step", "steps")))
+		}
+		s += fmt.Sprintf(" Numbers of survivor classes that fit a predecessor rule (%s, for every q >= 0, "+
+			"proven for all q by affine arithmetic) are justified by that smaller m, whose orbit passes through n; "+
+			"they are not searched and have no stopping time in the figures.", strings.Join(rs, "; "))
+	}
 	except := ""
 	if f.Counts.Undecided != "0" {
 		except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit reaches one of them", f.Counts.Undecided)
+		if len(f.Counts.Rules) > 0 {
+			except += " or whose predecessor is one of those"
+		}
 	}
 	// A number that drops reaches whatever the smaller number reaches.
 	if f.Lo == "1" || f.Lo == "2" {
@@ -96,6 +119,18 @@ func (f rangeFacts) sentence() string {
 			"a certificate for [1, %s) would show the premise.", f.Lo, target, f.Hi, except, f.Lo)
 	}
 	return s
+}
+
+// ruleTotal adds up the numbers the predecessor rules justified.
+func (f rangeFacts) ruleTotal() string {
+	t := new(big.Int)
+	for _, r := range f.Counts.Rules {
+		x, _ := new(big.Int).SetString(string(r.Numbers), 10)
+		if x != nil {
+			t.Add(t, x)
+		}
+	}
+	return t.String()
 }
 
 func (f rangeFacts) caveat() string {

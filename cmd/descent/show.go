@@ -287,11 +287,18 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	} {
 		fmt.Fprintf(tw, "  %s\t  %s\n", row[1], row[0])
 	}
+	for _, r := range f.Counts.Rules {
+		fmt.Fprintf(tw, "  %s\t  of the form %s, with the smaller predecessor %s (%s)\n", r.Numbers, r.Class, r.Predecessor, plural(r.Steps, "step", "steps"))
+	}
 	tw.Flush()
 	if f.Max != nil {
 		fmt.Fprintf(w, "\nLargest stopping time: %d steps, first at n = %s\n", f.Max.StoppingTime, f.Max.N)
 	}
-	fmt.Fprintf(w, "\nStopping-time records (n whose stopping time exceeds that of every smaller n in the range)\n")
+	if len(f.Counts.Rules) > 0 {
+		fmt.Fprintf(w, "\nStopping-time records, among the numbers not justified by a predecessor rule (those have no stopping time here)\n")
+	} else {
+		fmt.Fprintf(w, "\nStopping-time records (n whose stopping time exceeds that of every smaller n in the range)\n")
+	}
 	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintf(tw, "  n\tstopping time\t\n")
 	for _, r := range f.Records {

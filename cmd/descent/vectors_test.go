@@ -172,12 +172,13 @@ func classify(b []byte) (decoder, hashes string) {
 			return err
 		}
 	case cert.KindRange:
-		if _, err := cert.ParseRangeHeader(header); err != nil {
+		rh, err := cert.ParseRangeHeader(header)
+		if err != nil {
 			return "malformed", "malformed"
 		}
 		parse = func(rec []byte, i int, base int64) error {
 			blk, err := cert.ParseBlock(rec, base)
-			if err == nil && blk.Index != uint32(first+i) {
+			if err == nil && (blk.Index != uint32(first+i) || len(blk.Rules) != len(rh.Rules)) {
 				err = cert.ErrMalformed
 			}
 			return err
@@ -311,6 +312,7 @@ func emitGood(t *testing.T, dir string) []good {
 	s6 := mk("sieve-5n+1-k6", "emit", "sieve", "-k", "6", "-map", "5n+1", "-cap", "200")
 	r := mk("range-3n+1-k4", "emit", "range", "-sieve", filepath.Join(dir, "sieve-3n+1-k4"), "-from", "1", "-to", "30", "-block", "5")
 	j7 := mk("sieve-3n+1-k7-joins", "emit", "sieve", "-k", "7", "-join")
+	rr := mk("range-3n+1-k4-rules", "emit", "range", "-sieve", filepath.Join(dir, "sieve-3n+1-k4"), "-from", "1", "-to", "30", "-block", "5", "-rules", "auto")
 	sh0 := mk("shard0", "emit", "sieve", "-k", "8", "-shard", "0/2")
 	sh1 := mk("shard1", "emit", "sieve", "-k", "8", "-shard", "1/2")
 	return []good{
@@ -319,6 +321,7 @@ func emitGood(t *testing.T, dir string) []good {
 		{"shard-0of2-3n+1-k8", "", "shard-1of2-3n+1-k8-0000.vec", false, sh0},
 		{"shard-1of2-3n+1-k8", "", "shard-0of2-3n+1-k8-0000.vec", true, sh1},
 		{"sieve-3n+1-k7-joins", "", "", true, j7},
+		{"range-3n+1-k4-to-30-rules", "sieve-3n+1-k4", "", true, rr},
 	}
 }
 
