@@ -63,6 +63,36 @@ func TestMergeIsByteIdentical(t *testing.T) {
 	}
 }
 
+func TestMergeWithJoinsAndRules(t *testing.T) {
+	// A sieve with joins (its shards count the joins before they write)
+	// and a range with predecessor rules merge to the one-machine bytes.
+	joins := func(o *Shard) []byte {
+		var f memFile
+		_, err := Sieve(context.Background(), &f, SieveParams{Map: cert.Collatz, K: 22, J: 22, Joins: true}, Options{Shard: o})
+		require.NoError(t, err)
+		return f.b
+	}
+	whole := joins(nil)
+	for _, n := range []int{1, 4} {
+		got, err := merged(t, shardsOf(t, n, joins))
+		require.NoError(t, err, "N = %d", n)
+		require.True(t, bytes.Equal(whole, got), "N = %d: the merged sieve with joins differs from a one-machine run", n)
+	}
+
+	sres, _ := emitSieve(t, cert.Collatz, 12, 12, Options{})
+	p := RangeParams{Sieve: sres.Header, SieveRoot: sres.Root, Lo: big.NewInt(5), Hi: big.NewInt(1 << 20), E: 14, Rules: AutoRules(cert.Collatz)}
+	rules := func(o *Shard) []byte {
+		var g memFile
+		_, err := Range(context.Background(), &g, p, RangeOptions{Shard: o})
+		require.NoError(t, err)
+		return g.b
+	}
+	one := rules(nil)
+	got, err := merged(t, shardsOf(t, 3, rules))
+	require.NoError(t, err)
+	require.True(t, bytes.Equal(one, got), "the merged range with rules differs from a one-machine run")
+}
+
 func TestMergeRefuses(t *testing.T) {
 	shard := func(m cert.Map, k, j, i, n int) []byte {
 		var f memFile
