@@ -136,6 +136,10 @@ type Joins struct {
 // The codes are padded with zero bits to a whole byte; the varints follow,
 // and a varint never holds delta = 1, which has its own code.
 
+// MaxJoinSurvivors bounds the survivors of one chunk of a sieve with
+// joins, whose checker keeps them while it reads the join section.
+const MaxJoinSurvivors = 1 << 22
+
 // JoinWriter builds a join section survivor by survivor, for writers
 // that would rather not hold a Joins.
 type JoinWriter struct {
@@ -204,6 +208,9 @@ func AppendJoins(b []byte, j Joins) []byte {
 // its file offset, for errors.
 func ParseJoins(rest []byte, survivors int, base int64) (Joins, error) {
 	j := Joins{Joined: []bool{}, Delta: []int64{}}
+	if survivors > MaxJoinSurvivors {
+		return j, formatErr(base, "a chunk of a sieve with joins holds %d survivors, more than %d", survivors, MaxJoinSurvivors)
+	}
 	r := bitReader{buf: rest, nbit: uint64(len(rest)) * 8}
 	var explicit []int // the places in Delta that a varint fills
 	for range survivors {

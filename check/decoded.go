@@ -186,6 +186,9 @@ func decodeChunk(rec []byte, i int, h *sieveHeader, base int64) (DecodedChunk, *
 			n++
 		}
 	}
+	if n > maxJoinSurvivors {
+		return c, malformed(base, "chunk %d has %d survivors, more than the %d a chunk of a sieve with joins may hold", i, n, maxJoinSurvivors)
+	}
 	joined, deltas, fl := readJoins(w.rest, n, i, at)
 	if fl != nil {
 		return c, fl

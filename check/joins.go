@@ -13,6 +13,9 @@ import (
 // the same value; then every member 2^k*q + r meets 2^k*q + r' after k
 // steps. The checker follows both residues itself.
 
+// maxJoinSurvivors bounds the survivors of one chunk of a sieve with joins.
+const maxJoinSurvivors = 1 << 22
+
 // readJoins reads a join section for n survivors (SPEC.md, section 8):
 // a code per survivor (0: not joined; 10: joined to r - 1; 11: joined to
 // r - delta, delta from the varints), zero bits to a whole byte, then one
@@ -97,7 +100,7 @@ func (sv *sieve) join(w *walk, r uint64, delta int64) *Failure {
 	case s1 != s2:
 		return invalid("join", w.where(r, sv.j, claim(), fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
 			"after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", sv.j, r, s1, p, sv.j, s2)
-	case v1 != v2 || (b1 == nil) != (b2 == nil) || (b1 != nil && b1.Cmp(b2) != 0):
+	case !sameValue(v1, b1, v2, b2):
 		show := func(v uint64, b *big.Int) string {
 			if b != nil {
 				return b.String()
@@ -108,6 +111,20 @@ func (sv *sieve) join(w *walk, r uint64, delta int64) *Failure {
 			"T^%d(%d) = %s but T^%d(%d) = %s: the paths do not meet", sv.j, r, show(v1, b1), sv.j, p, show(v2, b2))
 	}
 	return nil
+}
+
+// sameValue compares two results of afterK, either of which may be big.
+func sameValue(v1 uint64, b1 *big.Int, v2 uint64, b2 *big.Int) bool {
+	if b1 == nil && b2 == nil {
+		return v1 == v2
+	}
+	if b1 == nil {
+		b1 = new(big.Int).SetUint64(v1)
+	}
+	if b2 == nil {
+		b2 = new(big.Int).SetUint64(v2)
+	}
+	return b1.Cmp(b2) == 0
 }
 
 // afterK follows x for k steps exactly and returns the odd steps and

@@ -69,6 +69,7 @@ type stubState struct {
 type walk struct {
 	sv        *sieve
 	chunk     int
+	at        int64 // the record's file offset
 	code      []byte
 	nbit, pos uint64
 	start     uint64 // the residue the chunk starts at
@@ -152,6 +153,12 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 	if w.end == sv.j {
 		w.survivors++
 		if w.collect {
+			// The joins are checked survivor by survivor after the walk,
+			// so the list is capped (SPEC.md, section 8, "Limits").
+			if len(w.found) == maxJoinSurvivors {
+				w.fail = malformed(w.at, "chunk %d has more than %d survivors, the most a chunk of a sieve with joins may hold", w.chunk, maxJoinSurvivors)
+				return false
+			}
 			w.found = append(w.found, res)
 		}
 		return true
@@ -193,7 +200,7 @@ func (sv *sieve) frame(i int, rec []byte, base int64) (*walk, *Failure) {
 	if len(rec) < chunkHead {
 		return nil, malformed(base, "chunk %d: a record of %d bytes is shorter than the %d-byte chunk head", i, len(rec), chunkHead)
 	}
-	w := &walk{sv: sv, chunk: i, start: binary.BigEndian.Uint64(rec), nbit: uint64(binary.BigEndian.Uint32(rec[10:])),
+	w := &walk{sv: sv, chunk: i, at: base, start: binary.BigEndian.Uint64(rec), nbit: uint64(binary.BigEndian.Uint32(rec[10:])),
 		code: rec[chunkHead:], begin: int(rec[8]), end: int(rec[9])}
 	if w.begin > w.end || w.end > maxK {
 		return nil, malformed(base+8, "chunk %d spans depths %d to %d", i, w.begin, w.end)

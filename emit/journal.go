@@ -36,6 +36,9 @@ func journalDigest(p RangeParams, sh *Shard) []byte {
 	if sh != nil {
 		fmt.Fprintf(d, "\x00shard %d/%d", sh.I, sh.N)
 	}
+	for _, r := range p.Rules {
+		fmt.Fprintf(d, "\x00rule %d %d %d %d %d", r.M, r.C, r.Mp, r.Cp, r.Steps)
+	}
 	return d.Sum(nil)
 }
 

@@ -178,8 +178,8 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	for i := from; i < upto; i++ {
 		var b *cert.Block
 		if i-from < len(o.Done) {
-			if b, err = cert.ParseBlock(o.Done[i-from], 0); err != nil || b.Index != uint32(i) {
-				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged: %v", i, err)
+			if b, err = cert.ParseBlock(o.Done[i-from], 0); err != nil || b.Index != uint32(i) || len(b.Rules) != len(p.Rules) {
+				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged or of another run: %v", i, err)
 			}
 			recs = append(recs, o.Done[i-from])
 		} else {

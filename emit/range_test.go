@@ -210,6 +210,19 @@ func TestDeterministicAndResumable(t *testing.T) {
 	require.NoError(t, j.Close())
 	_, _, err = OpenJournal(path, p, nil)
 	require.True(t, errors.Is(err, errJournalParams), "%v", err)
+
+	// So is one of a run with other predecessor rules, and blocks handed
+	// over with the wrong number of rule counts.
+	r := p
+	r.Rules = AutoRules(cert.Collatz)
+	other := filepath.Join(t.TempDir(), "rules.partial")
+	j, _, err = OpenJournal(other, p, nil)
+	require.NoError(t, err)
+	require.NoError(t, j.Close())
+	_, _, err = OpenJournal(other, r, nil)
+	require.True(t, errors.Is(err, errJournalParams), "%v", err)
+	_, err = Range(context.Background(), &memFile{}, r, RangeOptions{Done: done})
+	require.ErrorContains(t, err, "of another run")
 }
 
 func TestSmallBound(t *testing.T) {

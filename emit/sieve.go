@@ -195,6 +195,9 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 				}
 				rec := cert.Chunk{Residue: st.res, From: d, To: r.j, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
 				if jw != nil {
+					if e.tally.open > cert.MaxJoinSurvivors {
+						return fmt.Errorf("emit: the chunk below class %d mod 2^%d has %d survivors, more than a chunk with joins may hold (%d)", st.res, d, e.tally.open, cert.MaxJoinSurvivors)
+					}
 					rec = jw.AppendTo(rec)
 					e.tally.joined = jw.Joined()
 				}

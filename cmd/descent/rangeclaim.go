@@ -107,8 +107,8 @@ func (f rangeFacts) sentence() string {
 	except := ""
 	if f.Counts.Undecided != "0" {
 		except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit reaches one of them", f.Counts.Undecided)
-		if len(f.Counts.Rules) > 0 {
-			except += " or whose predecessor is one of those"
+		if len(f.Counts.Rules) > 0 { // a rule rests n on a predecessor whose orbit passes through n
+			except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit meets the orbit of one of them", f.Counts.Undecided)
 		}
 	}
 	// A number that drops reaches whatever the smaller number reaches.

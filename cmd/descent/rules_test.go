@@ -4,6 +4,7 @@ import (
 	"math/big"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -140,4 +141,21 @@ func TestForgedRulesAreRejected(t *testing.T) {
 		require.Equal(t, exitUsage, code, "%v", rep)
 		require.Equal(t, "malformed", rep["reason"])
 	})
+}
+
+func TestRuleClaimExceptsWhatMeetsAnUndecidedOrbit(t *testing.T) {
+	// With a cap of 17 steps, 27, 31, 63 and 111 stay undecided; 47 rests
+	// on 31 by 3q+2 <- 2q+1, and 71, 91, 103 rest on 47 in turn. 103's own
+	// orbit never reaches an undecided number, so the claim must except
+	// every number whose orbit meets an undecided one's.
+	dir := t.TempDir()
+	sieve, rng := filepath.Join(dir, "s.dcert"), filepath.Join(dir, "r.dcert")
+	for _, args := range [][]string{{"emit", "sieve", "-k", "16", "-o", sieve},
+		{"emit", "range", "-sieve", sieve, "-from", "1", "-to", "128", "-cap", "17", "-rules", "auto", "-o", rng}} {
+		code, _, stderr := runCLI(args...)
+		require.Equal(t, exitOK, code, stderr)
+	}
+	code, out, stderr := runCLI("show", rng)
+	require.Equal(t, exitOK, code, stderr)
+	require.Contains(t, strings.Join(strings.Fields(out), " "), "any number whose orbit meets the orbit of one of them")
 }
