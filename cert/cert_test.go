@@ -352,13 +352,8 @@ func encodeWithCert(b []byte) ([]byte, error) {
 				return nil, fmt.Errorf("the top chunk has %d bytes after its codes", len(rest))
 			}
 			if len(recs) > 0 {
-				open := 0
-				if err := c.Walk(func(cl cert.Class) error {
-					if !cl.Closed && int(cl.Depth) == c.To {
-						open++
-					}
-					return nil
-				}); err != nil {
+				open, err := c.Open()
+				if err != nil {
 					return nil, err
 				}
 				j, err := cert.ParseJoins(rest, open, 0)

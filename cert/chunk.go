@@ -119,6 +119,19 @@ func (c Chunk) Walk(fn func(Class) error) error {
 	return nil
 }
 
+// Open counts the chunk's open leaves: its stubs (the top chunk) or its
+// survivors, the number of join codes its join section holds.
+func (c Chunk) Open() (int, error) {
+	n := 0
+	err := c.Walk(func(cl Class) error {
+		if !cl.Closed {
+			n++
+		}
+		return nil
+	})
+	return n, err
+}
+
 // Joins is the join section of a chunk of a sieve with joins (SPEC.md,
 // section 8): for each survivor of the chunk, in the order of the codes,
 // whether it is joined, and if so Delta = r - r' for its partner r'.

@@ -74,23 +74,9 @@ func newSearcher(h *rangeHeader) *searcher {
 		p.Mul(p, sv.A)
 	}
 	s.small = s.smallBound()
-	// The stubs: the classes open at depth d, in trie order.
-	var walkStubs func(t, sOdd int, v, res uint64)
-	walkStubs = func(t, sOdd int, v, res uint64) {
-		if t == s.d {
-			s.stubs = append(s.stubs, res)
-			return
-		}
-		for c := uint64(0); c < 2; c++ {
-			vc := v + c*sv.apow[sOdd]
-			if vc&1 == 0 && sv.closesAt(t+1, sOdd) {
-				continue
-			}
-			nv, ns := sv.step(vc, sOdd)
-			walkStubs(t+1, ns, nv, res|c<<t)
-		}
+	for _, st := range sv.stubList() { // the classes open at depth d, in trie order
+		s.stubs = append(s.stubs, st.res)
 	}
-	walkStubs(0, 0, 0, 0)
 	return s
 }
 

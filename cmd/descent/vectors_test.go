@@ -155,13 +155,8 @@ func classify(b []byte) (decoder, hashes string) {
 			if c.From != from || c.To != to {
 				return errDepths
 			}
-			survivors := 0
-			if err := c.Walk(func(cl cert.Class) error {
-				if !cl.Closed && cl.Depth == h.J {
-					survivors++
-				}
-				return nil
-			}); err != nil {
+			survivors, err := c.Open()
+			if err != nil {
 				return err
 			}
 			if h.Joins && i > 0 {
@@ -467,13 +462,7 @@ func generate(t *testing.T) []vector {
 		header, recs := records(g.data)
 		for i := 1; i < len(recs); i++ {
 			c, rest, _ := cert.ParseChunkJoins(recs[i], 0)
-			open := 0
-			_ = c.Walk(func(cl cert.Class) error {
-				if !cl.Closed {
-					open++
-				}
-				return nil
-			})
+			open, _ := c.Open()
 			j, err := cert.ParseJoins(rest, open, 0)
 			if err != nil || len(j.Delta) == 0 {
 				continue
