@@ -94,6 +94,7 @@ func (r *renderer) svg(p *Plot, label string) (string, error) {
 	plt := plot.New()
 	r.style(plt)
 	plt.X.Label.Text, plt.Y.Label.Text = p.X.Label, p.Y.Label
+	legend := false
 	for i, s := range p.Series {
 		if len(s.Points) == 0 {
 			continue
@@ -129,6 +130,7 @@ func (r *renderer) svg(p *Plot, label string) (string, error) {
 		}
 		if s.Name != "" && len(p.Series) > 1 {
 			plt.Legend.Add(s.Name, thumbs...)
+			legend = true
 		}
 	}
 	r.axis(&plt.X, p.X, false)
@@ -138,6 +140,9 @@ func (r *renderer) svg(p *Plot, label string) (string, error) {
 	}
 	if p.Kind == Bars && !p.Y.Log {
 		plt.Y.Min = 0 // bars stand on zero
+	}
+	if legend && !p.Y.Log {
+		plt.Y.Max += 0.25 * (plt.Y.Max - plt.Y.Min) // room for the legend above the data
 	}
 	plt.Legend.Top, plt.Legend.Left = true, p.Kind != Bars
 
