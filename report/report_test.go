@@ -47,7 +47,7 @@ func write(t *testing.T, p *Page) string {
 // The page must fetch nothing: no script, no attribute or style that
 // names a resource outside the file, and every font the plots name is
 // declared in the page itself.
-func TestPageIsSelfContained(t *testing.T) {
+func TestReportPageIsSelfContained(t *testing.T) {
 	page := write(t, demoPage())
 	require.NotContains(t, strings.ToLower(page), "<script")
 	require.NotContains(t, page, "@import")
@@ -73,7 +73,7 @@ func TestPageIsSelfContained(t *testing.T) {
 	require.NotContains(t, page, "<?xml", "inline SVG takes no XML declaration")
 }
 
-func TestTextIsEscaped(t *testing.T) {
+func TestReportTextIsEscaped(t *testing.T) {
 	page := write(t, demoPage())
 	require.Contains(t, page, "demo &lt;report&gt;")
 	require.Contains(t, page, "a &amp; b.dcert")
@@ -81,7 +81,7 @@ func TestTextIsEscaped(t *testing.T) {
 	require.NotContains(t, page, "<report>")
 }
 
-func TestFailedSectionShowsReasonAndNoPlot(t *testing.T) {
+func TestReportFailedSectionShowsReasonAndNoPlot(t *testing.T) {
 	page := write(t, demoPage())
 	i := strings.Index(page, `data-title="bad.dcert"`)
 	require.Positive(t, i)
@@ -95,7 +95,7 @@ func TestFailedSectionShowsReasonAndNoPlot(t *testing.T) {
 
 // A page that cannot be drawn as stated is refused, and nothing is
 // written.
-func TestBadModelsAreRefused(t *testing.T) {
+func TestReportBadModelsAreRefused(t *testing.T) {
 	for name, edit := range map[string]func(p *Page){
 		"zero on a log axis":      func(p *Page) { p.Sections[0].Figures[0].Plot.Series[0].Points[0].Y = 0 },
 		"NaN":                     func(p *Page) { p.Sections[0].Figures[2].Plot.Series[0].Points[0].Y = math.NaN() },
@@ -120,7 +120,7 @@ func TestBadModelsAreRefused(t *testing.T) {
 }
 
 // Every status labels its section, and an audit is never called a check.
-func TestStatusLabels(t *testing.T) {
+func TestReportStatusLabels(t *testing.T) {
 	p := demoPage()
 	p.Sections[0].Status = Audited
 	page := write(t, p)
@@ -132,7 +132,7 @@ func TestStatusLabels(t *testing.T) {
 
 // Log axes are ticked at powers of ten whatever the span; gonum's own
 // log ticks would label 1e+06 and crowd a span of 40 decades.
-func TestDecadeTicks(t *testing.T) {
+func TestReportDecadeTicks(t *testing.T) {
 	labels := func(lo, hi float64) []string {
 		var out []string
 		for _, tk := range (decades{}).Ticks(lo, hi) {

@@ -332,23 +332,20 @@ func rangeSection(rep *check.Report, s report.Section, sievePath string) report.
 			Y: report.Axis{Label: "numbers (log scale)", Log: true}},
 		Table: report.Table{Columns: []string{"justification", "numbers"}},
 	}
-	type row struct{ short, long string }
-	rows := []struct {
-		row
-		n check.Num
-	}{
-		{row{"sieve", "in a closing class of the sieve (stopping time = its closing step)"}, f.Counts.Sieve},
-		{row{"search", "in a survivor class, iterated until it drops"}, f.Counts.Search},
-		{row{"small", "small, iterated directly until it drops"}, f.Counts.Small},
-		{row{"cycle", "reaches a cycle without dropping"}, f.Counts.Cycle},
-		{row{"undecided", "undecided within the step cap"}, f.Counts.Undecided},
+	type row struct {
+		short, long string
+		n           check.Num
+	}
+	rows := []row{
+		{"sieve", "in a closing class of the sieve (stopping time = its closing step)", f.Counts.Sieve},
+		{"search", "in a survivor class, iterated until it drops", f.Counts.Search},
+		{"small", "small, iterated directly until it drops", f.Counts.Small},
+		{"cycle", "reaches a cycle without dropping", f.Counts.Cycle},
+		{"undecided", "undecided within the step cap", f.Counts.Undecided},
 	}
 	for i, r := range f.Counts.Rules {
-		rows = append(rows, struct {
-			row
-			n check.Num
-		}{row{fmt.Sprintf("rule %d", i+1), fmt.Sprintf("rule %d: of the form %s, resting on the smaller predecessor %s (%s)",
-			i+1, r.Class, r.Predecessor, plural(r.Steps, "step", "steps"))}, r.Numbers})
+		rows = append(rows, row{fmt.Sprintf("rule %d", i+1), fmt.Sprintf("rule %d: of the form %s, resting on the smaller predecessor %s (%s)",
+			i+1, r.Class, r.Predecessor, plural(r.Steps, "step", "steps")), r.Numbers})
 	}
 	var pts []report.XY
 	for i, r := range rows {
