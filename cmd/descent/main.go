@@ -34,12 +34,14 @@ const usage = `usage:
   descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
   descent check -part P -root HEX [-sieve FILE] FILE
   descent show [-json] FILE
+  descent version [-json]
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
 emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
 merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
+version     print the module version, VCS revision and Go version
 
 Run 'descent COMMAND -h' for the flags of a command.
 `
@@ -73,6 +75,8 @@ func (c *cli) run(ctx context.Context, args []string) int {
 		return c.merge(args[1:])
 	case "show":
 		return c.show(args[1:])
+	case "version":
+		return c.version(args[1:])
 	case "help", "-h", "-help", "--help":
 		fmt.Fprint(c.stdout, usage)
 		return exitOK
