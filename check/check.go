@@ -36,7 +36,8 @@ type Options struct {
 func File(path string, o Options) *Report {
 	f, err := os.Open(path)
 	if err != nil {
-		rep := &Report{File: path}
+		rep := newReport(o)
+		rep.File = path
 		return rep.fail(&Failure{Class: ErrMalformed, Reason: "unreadable", Msg: "cannot read: " + err.Error()})
 	}
 	defer f.Close()
@@ -47,7 +48,7 @@ func File(path string, o Options) *Report {
 
 // Check reads a certificate from r, front to back, and checks it.
 func Check(r io.Reader, o Options) *Report {
-	rep := &Report{}
+	rep := newReport(o)
 	f, fl := openFile(r)
 	if f.hdr != nil {
 		rep.describe(f)
@@ -107,6 +108,17 @@ func Check(r io.Reader, o Options) *Report {
 		return rep.fail(fl)
 	}
 	rep.Valid = true
+	return rep
+}
+
+// newReport starts a report in the mode the options ask for; a range
+// check settles an audit's mode once it knows the blocks.
+func newReport(o Options) *Report {
+	v := Version()
+	rep := &Report{Mode: ModeFull, Checker: &v}
+	if o.Span != nil {
+		rep.Mode = ModeShare
+	}
 	return rep
 }
 

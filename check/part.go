@@ -41,7 +41,8 @@ func readAt(r io.ReaderAt, off int64, n int64, what string) ([]byte, *Failure) {
 // Part checks part of the certificate at path: "P", the record P, or
 // "i/N", share i of N of the records, against root.
 func Part(path, part string, root [hashLen]byte, o Options) *Report {
-	rep := &Report{File: path}
+	rep := newReport(Options{})
+	rep.File, rep.Mode = path, ModePart
 	f, err := os.Open(path)
 	if err != nil {
 		return rep.fail(&Failure{Class: ErrMalformed, Reason: "unreadable", Msg: "cannot read: " + err.Error()})
@@ -216,6 +217,9 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 				rep.Undecided = append(rep.Undecided, Num(n.String()))
 			}
 		}
+	}
+	if hf.rng != nil {
+		rep.Below = fatesBelow(hf.rng)
 	}
 	return rep.finish()
 }

@@ -49,15 +49,19 @@ func TestRangeAudit(t *testing.T) {
 	b := vector(t, rangeVector)
 	rep := Check(bytes.NewReader(b), Options{Sieve: sievePath("sieve-3n+1-k12.dcert"), Sample: 5, Seed: "reviewer"})
 	require.NoError(t, rep.Err())
-	require.Equal(t, &Audit{Blocks: 64, Audited: 5, Seed: "reviewer", PassIfWrong: rep.Audit.PassIfWrong}, rep.Audit)
+	require.Equal(t, &Audit{Blocks: 64, Audited: 5, Seed: "reviewer", SeedFrom: "reader", PassIfWrong: rep.Audit.PassIfWrong}, rep.Audit)
+	require.Equal(t, ModeAudit, rep.Mode)
 	// 10% of 64 blocks: 7 wrong; the chance that 5 draws without
 	// replacement miss all of them is C(57,5)/C(64,5).
 	p := 1.0
 	for i := 0; i < 5; i++ {
 		p *= float64(57-i) / float64(64-i)
 	}
-	require.InDelta(t, p, rep.Audit.PassIfWrong[2].Pass, 1e-12)
-	require.Equal(t, 7, rep.Audit.PassIfWrong[2].WrongBlocks)
+	// 0.1% and 1% of 64 blocks are both 1 block: one line for both.
+	require.Len(t, rep.Audit.PassIfWrong, 2)
+	require.Equal(t, 1, rep.Audit.PassIfWrong[0].WrongBlocks)
+	require.InDelta(t, p, rep.Audit.PassIfWrong[1].Pass, 1e-12)
+	require.Equal(t, 7, rep.Audit.PassIfWrong[1].WrongBlocks)
 
 	// The blocks chosen depend on the root and the seed, and nothing else.
 	root := [hashLen]byte{1, 2, 3}

@@ -76,15 +76,16 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 	from, upto := 0, len(blocks) // the blocks to derive, by position in the file
 	if o.Span != nil {
 		from, upto = spanOf(*o.Span, len(blocks))
-		rep.Span = &SpanReport{Index: o.Span.I, Of: o.Span.N, First: from, Count: upto - from}
+		rep.Span = &SpanReport{Index: o.Span.I, Of: o.Span.N, First: base + from, Count: upto - from}
 	}
 	var chosen []int
 	for i := from; i < upto; i++ {
 		chosen = append(chosen, i)
 	}
 	if o.Sample > 0 && o.Sample < len(chosen) {
-		seed := o.Seed
+		seed, from := o.Seed, "reader"
 		if seed == "" {
+			from = "random"
 			// A seed the writer cannot know: with none, the draw would depend
 			// on the root alone, which the writer can grind (by trying header
 			// fields) until the audit misses its wrong blocks.
@@ -101,7 +102,8 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		}
 		chosen = drawn
 		rep.Audit = audit(share, len(chosen))
-		rep.Audit.Seed = seed
+		rep.Audit.Seed, rep.Audit.SeedFrom = seed, from
+		rep.Mode = ModeAudit
 	}
 	for _, i := range chosen {
 		want, _ := s.derive(base+i, defaultWorkers(o.Workers))
@@ -112,6 +114,7 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 			return rep.fail(fl)
 		}
 	}
+	rep.Below = fatesBelow(h)
 	return rep.finish()
 }
 
@@ -163,6 +166,9 @@ func audit(m, n int) *Audit {
 	a := &Audit{Blocks: m, Audited: n}
 	for _, share := range []float64{0.001, 0.01, 0.1} {
 		wrong := int(share*float64(m) + 0.999999)
+		if n := len(a.PassIfWrong); n > 0 && a.PassIfWrong[n-1].WrongBlocks == wrong {
+			continue // the same number of blocks as the smaller share
+		}
 		p := 1.0
 		for i := 0; i < n; i++ {
 			if m-wrong-i <= 0 {

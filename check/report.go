@@ -1,9 +1,14 @@
 package check
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math/big"
+	"runtime"
+	"runtime/debug"
+	"sort"
 	"strconv"
 	"strings"
 )
@@ -52,7 +57,9 @@ var Reasons = map[string]string{
 	"survivor-dropped": "a survivor is claimed to close",
 	"count":            "a count in the header differs from the count the claims give",
 	"exception":        "an exception is missing, invented, or has the wrong fate",
+	"join":             "a joined survivor's partner is not a smaller residue with the same odd steps and value after k steps",
 	"sieve":            "the sieve certificate a range rests on is missing, invalid, or another one",
+	"rule":             "a predecessor rule is false for some q, or its predecessor is not smaller",
 	"audit":            "a part, with its audit path, does not lead to the given root",
 	"block":            "a block of a range does not match its re-derivation",
 }
@@ -67,6 +74,17 @@ type Where struct {
 	Claim    string `json:"claim,omitempty"`
 	Expected string `json:"expected,omitempty"`
 	Found    string `json:"found,omitempty"`
+}
+
+// MarshalJSON writes n and residue as numbers (strings above 2^53), like
+// every other integer of a report.
+func (w Where) MarshalJSON() ([]byte, error) {
+	type plain Where
+	return json.Marshal(struct {
+		plain
+		Residue Num `json:"residue,omitempty"`
+		N       Num `json:"n,omitempty"`
+	}{plain(w), Num(w.Residue), Num(w.N)})
 }
 
 func (w Where) String() string {
@@ -102,18 +120,32 @@ func (n Num) MarshalJSON() ([]byte, error) {
 // ExceptionReport is one exception as the checker found it.
 type ExceptionReport struct {
 	N        Num    `json:"n"`
-	Fate     string `json:"fate"` // descends, cycle or undecided
-	Steps    uint32 `json:"steps,omitempty"`
+	Fate     string `json:"fate"`            // descends, cycle or undecided
+	Steps    uint32 `json:"steps,omitempty"` // descends: after this many steps of T
 	CycleMin Num    `json:"cycle_min,omitempty"`
 }
 
+// How much of a certificate a report re-derived (JSON "mode"). A report is
+// a full check of the whole certificate only in ModeFull on a file that is
+// not a shard; Checked says in words what was re-derived.
+const (
+	ModeFull      = "full"      // every record of the file
+	ModeAudit     = "audit"     // the blocks of a range drawn by a seed
+	ModeShare     = "share"     // share i of N of the file's records
+	ModePart      = "part"      // records of a whole certificate, against a published root
+	ModeUnchecked = "unchecked" // nothing: the claim as written (descent show)
+)
+
 // Report is the outcome of checking one certificate. The claim fields come
 // from the header and are filled in as far as the header could be read;
-// they are proven only when Valid is true.
+// they are proven only when Valid is true, and then only as far as Mode
+// and Checked say.
 type Report struct {
 	// JSON keys are chosen per kind by MarshalJSON.
 	File      string
+	Mode      string
 	Valid     bool
+	Checker   *BuildInfo // the program that checked, from its build information
 	Kind      string
 	Root      string
 	Map       string
@@ -125,23 +157,33 @@ type Report struct {
 	// A sieve with joins: the survivors joined to smaller residues, and all
 	// survivors, joined or not.
 	Joined, SieveSurvivors Num
-	ClosedAt               map[string]Num
+	ClosedAt               map[string]Num // step -> classes mod 2^step closing there
 	Exceptions             []ExceptionReport
 	// Range certificates.
-	SieveRoot       string
-	From            Num
-	To              Num
-	BlockExp        int
-	Counts          *RangeCounts
+	SieveRoot string
+	From      Num
+	To        Num
+	BlockExp  int
+	Counts    *RangeCounts
+	// Records and MaxStoppingTime are over the numbers whose stopping time
+	// the certificate states (Counts.Stated), not over the whole range.
 	Records         []RecordReport
 	MaxStoppingTime *RecordReport
 	Cycles          []CycleReport
 	Undecided       []Num
-	Audit           *Audit
-	Shard           *SpanReport // a shard file: which records of the whole it holds
-	Span            *SpanReport // a share checked with Options.Span
-	BytesRead       int64       // a part check: the bytes of the file it read
-	Partial         bool        // only part of the claims were re-derived (-shard, -part, -sample)
+	// Below: what each number below From reaches, by direct iteration
+	// within the cap, derived when From <= 2 (then there is at most the
+	// number 1); nil when not derived.
+	Below     *[]ExceptionReport
+	Audit     *Audit
+	Shard     *SpanReport // a shard file: which records of the whole it holds
+	Span      *SpanReport // a share checked with Options.Span, or the records of a part check
+	BytesRead int64       // a part check: the bytes of the file it read
+	Partial   bool        // only part of the claims were re-derived (-shard, -part, -sample, a shard file)
+
+	// The claim in words and what it does not prove, filled in by the
+	// command (they depend on wording the checker does not own).
+	Claim, NotProven string
 
 	Reason string
 	Error  string
@@ -176,15 +218,30 @@ func invalid(reason string, w Where, format string, args ...any) *Failure {
 
 // RangeCounts says how the numbers of a range are justified.
 type RangeCounts struct {
-	Sieve           Num `json:"sieve"`     // in a closing class: T^t(n) < n, t the stopping time
-	Search          Num `json:"search"`    // in a survivor class, found to drop by iteration
-	Small           Num `json:"small"`     // at most the small bound, found to drop by direct iteration
-	Cycle           Num `json:"cycle"`     // reach a cycle without dropping
-	Undecided       Num `json:"undecided"` // neither within the cap
-	StoppingTimeSum Num `json:"stopping_time_sum"`
+	Sieve     Num `json:"sieve"`     // in a closing class: T^t(n) < n, t the stopping time
+	Search    Num `json:"search"`    // in a survivor class, found to drop by iteration
+	Small     Num `json:"small"`     // at most the small bound, found to drop by direct iteration
+	Cycle     Num `json:"cycle"`     // reach a cycle without dropping
+	Undecided Num `json:"undecided"` // neither within the cap
+	// StoppingTimeSum is over the Stated numbers only; JSON carries it in
+	// "stated_stopping_times".
+	StoppingTimeSum Num `json:"-"`
 	// Rules: the numbers of survivor classes justified by each predecessor
-	// rule instead of a search; they have no stopping time in the figures.
+	// rule instead of a search; the certificate states no stopping time
+	// for them.
 	Rules []RuleReport `json:"rules"`
+}
+
+// Stated is the number of numbers whose stopping time the certificate
+// states: those justified by the sieve, by search and as small numbers.
+func (c *RangeCounts) Stated() Num {
+	t := new(big.Int)
+	for _, x := range []Num{c.Sieve, c.Search, c.Small} {
+		if v, ok := new(big.Int).SetString(string(x), 10); ok {
+			t.Add(t, v)
+		}
+	}
+	return Num(t.String())
 }
 
 // RuleReport is a predecessor rule with the numbers it justified: every
@@ -197,10 +254,13 @@ type RuleReport struct {
 	Numbers     Num    `json:"numbers"`
 }
 
-// RecordReport is a number with its stopping time.
+// RecordReport is a number with its stopping time in steps of T, and, when
+// the command worked it out, in standard steps (an+b and n/2 counted
+// apart: the stopping time plus the odd steps among them).
 type RecordReport struct {
-	N            Num    `json:"n"`
-	StoppingTime uint32 `json:"stopping_time"`
+	N             Num    `json:"n"`
+	StoppingTime  uint32 `json:"steps"`
+	StandardSteps uint64 `json:"standard_steps,omitempty"`
 }
 
 // CycleReport is a cycle, by its smallest member, and how many numbers of
@@ -212,9 +272,13 @@ type CycleReport struct {
 
 // Audit describes a sampled check of a range.
 type Audit struct {
-	Blocks      int          `json:"blocks"`
-	Audited     int          `json:"audited"`
-	Seed        string       `json:"seed"` // the reader's seed (chosen at random if none was given): repeat the audit with it
+	Blocks  int `json:"blocks"`  // the blocks the draw was from
+	Audited int `json:"audited"` // the blocks drawn and re-derived
+	// Seed: repeat the audit with it. SeedFrom says who chose it: "reader"
+	// (given with the check; it proves something only if the writer could
+	// not know it) or "random" (drawn by the checker).
+	Seed        string       `json:"seed"`
+	SeedFrom    string       `json:"seed_from"`
 	PassIfWrong []PassChance `json:"pass_if_wrong"`
 }
 
@@ -226,48 +290,261 @@ type PassChance struct {
 	Pass        float64 `json:"pass"`
 }
 
+// BuildInfo names the program that made a report.
+type BuildInfo struct {
+	Module   string `json:"module"`
+	Version  string `json:"version"`
+	Revision string `json:"revision,omitempty"`
+	Time     string `json:"time,omitempty"`
+	Modified bool   `json:"modified,omitempty"`
+	Go       string `json:"go"`
+}
+
+// Version reads the module version and the VCS revision from the build
+// information of the running program.
+func Version() BuildInfo {
+	v := BuildInfo{Module: "descent", Version: "unknown", Go: runtime.Version()}
+	info, ok := debug.ReadBuildInfo()
+	if !ok {
+		return v
+	}
+	if info.Main.Path != "" {
+		v.Module = info.Main.Path
+	}
+	if info.Main.Version != "" {
+		v.Version = info.Main.Version
+	}
+	if info.GoVersion != "" {
+		v.Go = info.GoVersion
+	}
+	for _, s := range info.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			v.Revision = s.Value
+		case "vcs.time":
+			v.Time = s.Value
+		case "vcs.modified":
+			v.Modified = s.Value == "true"
+		}
+	}
+	return v
+}
+
+// Checked says in words what the report re-derived, and what it did not.
+func (r *Report) Checked() string {
+	rng := strings.HasPrefix(r.Kind, "range")
+	unit, units := "chunk", "chunks"
+	if rng {
+		unit, units = "block", "blocks"
+	}
+	span := func(s *SpanReport) string {
+		if s.Count == 1 {
+			return fmt.Sprintf("%s %d", unit, s.First)
+		}
+		return fmt.Sprintf("%s %d to %d", units, s.First, s.First+s.Count-1)
+	}
+	of := ""
+	if r.Shard != nil {
+		of = " of the whole"
+	}
+	joins := ""
+	if r.Joined != "" {
+		joins = ", their joins included"
+	}
+	if r.Mode == ModeUnchecked {
+		return "nothing: this is the claim as written in the file, whose stored tree agrees with its header; 'descent check' re-derives it"
+	}
+	if !r.Valid {
+		return "the check stopped at the first failure (reason, error, where); nothing in this report is shown valid"
+	}
+	var did, not []string
+	switch {
+	case r.Mode == ModePart:
+		did = append(did, fmt.Sprintf("the header and %s, each against the given root through its audit path", span(r.Span)))
+	case r.Shard != nil:
+		did = append(did, "every hash of the shard")
+	default:
+		did = append(did, "every hash")
+	}
+	if rng {
+		did = append(did, "the sieve it rests on", "its predecessor rules, for all q")
+	}
+	switch {
+	case r.Mode == ModeAudit && r.Audit != nil:
+		from := fmt.Sprintf("the %d %s of the file", r.Audit.Blocks, units)
+		if r.Span != nil {
+			from = fmt.Sprintf("%s%s (share %d of %d)", span(r.Span), of, r.Span.Index, r.Span.Of)
+		} else if r.Shard != nil {
+			from = fmt.Sprintf("the shard's %d (%s%s)", r.Audit.Blocks, span(r.Shard), of)
+		}
+		did = append(did, fmt.Sprintf("the claims of %d %s drawn by the seed from %s, re-derived", r.Audit.Audited, pluralWord(r.Audit.Audited, unit, units), from))
+		not = append(not, fmt.Sprintf("the claims of the %s not drawn", units))
+	case r.Span != nil && r.Mode == ModeShare:
+		did = append(did, fmt.Sprintf("the claims of %s%s (share %d of %d)%s, re-derived", span(r.Span), of, r.Span.Index, r.Span.Of, joins))
+		if !r.ShareIsAll() {
+			not = append(not, fmt.Sprintf("the claims of the other %s", units))
+		}
+	case r.Mode == ModePart:
+		did = append(did, fmt.Sprintf("the claims of %s%s, re-derived", span(r.Span), joins))
+		not = append(not, fmt.Sprintf("the other %s, which were not read", units))
+	case r.Shard != nil:
+		did = append(did, fmt.Sprintf("the claims of its %s (%s%s)%s, re-derived", units, span(r.Shard), of, joins))
+	default:
+		did = append(did, fmt.Sprintf("the claims of every %s%s, re-derived", unit, joins))
+	}
+	switch {
+	case rng && r.Shard != nil:
+		not = append(not, "the whole's totals, which a shard does not hold")
+	case rng && r.Mode == ModePart:
+		not = append(not, "the header's totals")
+	case rng && r.Mode == ModeFull:
+		did = append(did, "the header's totals, added up from the blocks")
+	case rng:
+		did = append(did, "the header's totals, added up from the blocks as written")
+	case r.Mode == ModeFull && r.Shard == nil:
+		did = append(did, "the header's counts, added up from the chunks", "every exception, found afresh with its fate")
+	default:
+		did = append(did, "the header's counts, from the map alone", "every exception, found afresh with its fate")
+		if r.Joined != "" {
+			not = append(not, "the header's count of joins, which needs every chunk")
+		}
+	}
+	if r.Shard != nil {
+		not = append(not, "the other shards")
+	}
+	s := strings.Join(did, "; ")
+	if len(not) > 0 {
+		s += ". Not checked: " + strings.Join(not, "; ")
+	}
+	return s
+}
+
+// ShareIsAll says whether a share (ModeShare) holds every record of the
+// file, as share 0 of 1 does.
+func (r *Report) ShareIsAll() bool {
+	if r.Span == nil {
+		return false
+	}
+	if r.Shard != nil {
+		return r.Span.Count == r.Shard.Count
+	}
+	return r.Span.Count == r.Chunks
+}
+
+func pluralWord(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}
+
+// stepCounts writes closed_at as an object in numeric order of the step
+// (a Go map would be written in the order of its keys as strings).
+type stepCounts map[string]Num
+
+func (m stepCounts) MarshalJSON() ([]byte, error) {
+	if m == nil {
+		return []byte("null"), nil
+	}
+	steps := make([]int, 0, len(m))
+	for k := range m {
+		t, err := strconv.Atoi(k)
+		if err != nil {
+			return nil, fmt.Errorf("closed_at: step %q", k)
+		}
+		steps = append(steps, t)
+	}
+	sort.Ints(steps)
+	var b bytes.Buffer
+	b.WriteByte('{')
+	for i, t := range steps {
+		if i > 0 {
+			b.WriteByte(',')
+		}
+		v, err := m[strconv.Itoa(t)].MarshalJSON()
+		if err != nil {
+			return nil, err
+		}
+		fmt.Fprintf(&b, "%q:%s", strconv.Itoa(t), v)
+	}
+	b.WriteByte('}')
+	return b.Bytes(), nil
+}
+
+// statedStoppingTimes groups the figures of a range that are over the
+// numbers whose stopping time the certificate states, so that no reader
+// takes them for figures over the whole range.
+type statedStoppingTimes struct {
+	Over    []string       `json:"over"`     // the counts these numbers make up
+	StepsOf string         `json:"steps_of"` // the step convention: steps of T
+	Numbers Num            `json:"numbers"`
+	Sum     Num            `json:"sum"`
+	Max     *RecordReport  `json:"max"`
+	Records []RecordReport `json:"records"`
+}
+
 // MarshalJSON writes the keys of the report's kind: a sieve report always
-// has exceptions, a range report always has records, cycles and undecided.
+// has exceptions, a range report always has its stated stopping times,
+// cycles and undecided numbers. "valid" is left out of a report that
+// re-derived nothing (ModeUnchecked).
 func (r *Report) MarshalJSON() ([]byte, error) {
 	type common struct {
-		File  string `json:"file,omitempty"`
-		Valid bool   `json:"valid"`
-		Kind  string `json:"kind,omitempty"`
-		Root  string `json:"root,omitempty"`
-		Map   string `json:"map,omitempty"`
+		Checker *BuildInfo `json:"checker,omitempty"`
+		File    string     `json:"file,omitempty"`
+		Mode    string     `json:"mode"`
+		Valid   *bool      `json:"valid,omitempty"`
+		Checked string     `json:"checked"`
+		Partial *bool      `json:"partial,omitempty"`
+		Kind    string     `json:"kind,omitempty"`
+		Root    string     `json:"root,omitempty"`
+		Map     string     `json:"map,omitempty"`
 	}
 	type failure struct {
 		Reason string `json:"reason,omitempty"`
 		Error  string `json:"error,omitempty"`
 		Where  *Where `json:"where,omitempty"`
 	}
-	c := common{r.File, r.Valid, r.Kind, r.Root, r.Map}
-	f := failure{r.Reason, r.Error, r.Where}
-	if r.Kind == "range" || r.Kind == "range shard" {
-		return json.Marshal(struct {
-			common
-			SieveRoot       string         `json:"sieve_root"`
-			From            Num            `json:"from"`
-			To              Num            `json:"to"`
-			K               int            `json:"k"`
-			BlockExp        int            `json:"block_exponent"`
-			Cap             uint32         `json:"cap"`
-			Blocks          int            `json:"blocks"`
-			Counts          *RangeCounts   `json:"counts"`
-			Records         []RecordReport `json:"records"`
-			MaxStoppingTime *RecordReport  `json:"max_stopping_time"`
-			Cycles          []CycleReport  `json:"cycles"`
-			Undecided       []Num          `json:"undecided"`
-			Audit           *Audit         `json:"audit,omitempty"`
-			Shard           *SpanReport    `json:"shard,omitempty"`
-			Span            *SpanReport    `json:"span,omitempty"`
-			BytesRead       int64          `json:"bytes_read,omitempty"`
-			Partial         bool           `json:"partial,omitempty"`
-			failure
-		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, orEmpty(r.Records), r.MaxStoppingTime,
-			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Audit, r.Shard, r.Span, r.BytesRead, r.Partial, f})
+	type words struct {
+		Claim     string `json:"claim,omitempty"`
+		NotProven string `json:"not_proven,omitempty"`
 	}
-	return json.Marshal(struct {
+	c := common{Checker: r.Checker, File: r.File, Mode: r.Mode, Checked: r.Checked(), Kind: r.Kind, Root: r.Root, Map: r.Map}
+	if r.Mode != ModeUnchecked { // valid and partial say what a check found
+		v, p := r.Valid, r.Partial
+		c.Valid, c.Partial = &v, &p
+	}
+	f := failure{r.Reason, r.Error, r.Where}
+	w := words{r.Claim, r.NotProven}
+	if r.Kind == "range" || r.Kind == "range shard" {
+		var st *statedStoppingTimes
+		if r.Counts != nil {
+			st = &statedStoppingTimes{Over: []string{"sieve", "search", "small"}, StepsOf: "T", Numbers: r.Counts.Stated(),
+				Sum: r.Counts.StoppingTimeSum, Max: r.MaxStoppingTime, Records: orEmpty(r.Records)}
+		}
+		return marshal(struct {
+			common
+			SieveRoot string               `json:"sieve_root"`
+			From      Num                  `json:"from"`
+			To        Num                  `json:"to"`
+			K         int                  `json:"k"`
+			BlockExp  int                  `json:"block_exponent"`
+			Cap       uint32               `json:"cap"`
+			Blocks    int                  `json:"blocks"`
+			Counts    *RangeCounts         `json:"counts"`
+			Stated    *statedStoppingTimes `json:"stated_stopping_times"`
+			Cycles    []CycleReport        `json:"cycles"`
+			Undecided []Num                `json:"undecided"`
+			Below     *[]ExceptionReport   `json:"below_from"`
+			Audit     *Audit               `json:"audit,omitempty"`
+			Shard     *SpanReport          `json:"shard,omitempty"`
+			Span      *SpanReport          `json:"span,omitempty"`
+			BytesRead int64                `json:"bytes_read,omitempty"`
+			words
+			failure
+		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, st,
+			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Below, r.Audit, r.Shard, r.Span, r.BytesRead, w, f})
+	}
+	return marshal(struct {
 		common
 		K          int               `json:"k,omitempty"`
 		J          int               `json:"j,omitempty"`
@@ -276,14 +553,26 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		Survivors  Num               `json:"survivors,omitempty"`
 		Joined     Num               `json:"joined,omitempty"`
 		Before     Num               `json:"sieve_survivors,omitempty"`
-		ClosedAt   map[string]Num    `json:"closed_at,omitempty"`
+		ClosedAt   stepCounts        `json:"closed_at,omitempty"`
 		Exceptions []ExceptionReport `json:"exceptions"`
 		Shard      *SpanReport       `json:"shard,omitempty"`
 		Span       *SpanReport       `json:"span,omitempty"`
 		BytesRead  int64             `json:"bytes_read,omitempty"`
-		Partial    bool              `json:"partial,omitempty"`
+		words
 		failure
-	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.Joined, r.SieveSurvivors, r.ClosedAt, orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, r.Partial, f})
+	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.Joined, r.SieveSurvivors, stepCounts(r.ClosedAt), orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, w, f})
+}
+
+// marshal writes JSON without escaping <, > and &, which the claims use
+// as comparisons.
+func marshal(v any) ([]byte, error) {
+	var b bytes.Buffer
+	enc := json.NewEncoder(&b)
+	enc.SetEscapeHTML(false)
+	if err := enc.Encode(v); err != nil {
+		return nil, err
+	}
+	return bytes.TrimSuffix(b.Bytes(), []byte("\n")), nil
 }
 
 func orEmpty[T any](s []T) []T {

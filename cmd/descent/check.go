@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"errors"
 	"fmt"
 	"os"
@@ -35,6 +34,11 @@ func (c *cli) check(args []string) int {
 		c.errorf("check: -sample %d: want a positive number of blocks", *sampleN)
 		return exitUsage
 	}
+	if *seed != "" {
+		// A seed the writer knows lets it grind a certificate whose wrong
+		// blocks the draw misses (SPEC.md, "Audits").
+		c.errorf("warning: -seed %q: an audit proves something only if the seed was chosen after the root was published, by someone the writer could not predict; without -seed the checker draws one at random", *seed)
+	}
 	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
 	if *shardFlag != "" {
 		sh, err := parseShard(*shardFlag, os.Getenv)
@@ -65,13 +69,11 @@ func (c *cli) check(args []string) int {
 			rep = check.File(path, o)
 		}
 		status = max(status, exitStatus(rep))
+		words(rep)
 		if *asJSON {
-			b, err := json.Marshal(rep)
-			if err != nil {
-				c.errorf("check: %s: %v", path, err)
-				return exitUsage
+			if code := c.writeJSON(rep); code != exitOK {
+				return code
 			}
-			fmt.Fprintf(c.stdout, "%s\n", b)
 			continue
 		}
 		c.printReport(rep)
@@ -89,49 +91,112 @@ func exitStatus(rep *check.Report) int {
 	return exitUsage
 }
 
-func (c *cli) printReport(rep *check.Report) {
-	if rep.Valid && (rep.Span != nil || rep.Shard != nil) {
-		what := fmt.Sprintf("%s certificate", rep.Kind)
-		if s := rep.Shard; s != nil {
-			what = fmt.Sprintf("shard %d of %d (records %d to %d) of a %s certificate", s.Index, s.Of, s.First, s.First+s.Count-1, strings.TrimSuffix(rep.Kind, " shard"))
-		}
-		part := ""
-		if s := rep.Span; s != nil {
-			part = fmt.Sprintf("; re-derived records %d to %d only", s.First, s.First+s.Count-1)
-			if rep.BytesRead > 0 {
-				part += fmt.Sprintf(" (read %d bytes of the file)", rep.BytesRead)
-			}
-		}
-		fmt.Fprintf(c.stdout, "%s: valid %s%s\n  root       %s\n", rep.File, what, part, rep.Root)
-		note := "the claims of these records are re-derived, and the header's counts and exceptions (from the map alone); the other records' claims are not"
-		if rep.Joined != "" {
-			note = "the claims of these records, their joins included, are re-derived, and the header's counts and exceptions (from the map alone) except the count of joins, which needs every record; the other records' claims are not"
-		}
-		if strings.HasPrefix(rep.Kind, "range") {
-			note = "the claims of these blocks are re-derived; the other blocks, and the totals, need their own checks"
-		}
-		fmt.Fprintf(c.stdout, "  note       %s\n", note)
+// words fills in the claim of a valid report in words, and the standard
+// steps of its stated stopping times.
+func words(rep *check.Report) {
+	if !rep.Valid {
 		return
 	}
-	if rep.Valid && rep.Kind == "range" {
-		verdict := "valid range certificate"
-		if a := rep.Audit; a != nil {
-			verdict = fmt.Sprintf("passes an audit of %d of its %d blocks (not a full check)", a.Audited, a.Blocks)
+	switch {
+	case rep.Kind == "range":
+		addStandardSteps(rep)
+		f := rangeFactsFromReport(rep)
+		rep.Claim, rep.NotProven = f.sentence(), f.caveat()
+		if rep.Mode != check.ModeFull {
+			rep.Claim = "As written, and re-derived only as far as \"checked\" says: " + rep.Claim
 		}
-		fmt.Fprintf(c.stdout, "%s: %s\n  root       %s\n  sieve      %s\n  claim      %s\n",
-			rep.File, verdict, rep.Root, rep.SieveRoot, rangeFactsFromReport(rep).summary())
+	case rep.Kind == "sieve" || rep.Kind == "sieve shard":
+		// A sieve's counts and exceptions are re-derived in every mode, from
+		// the map alone where the chunks are not all read; only the count
+		// of joins needs every chunk.
+		f := factsFromReport(rep)
+		rep.Claim, rep.NotProven = f.sentence(), f.caveat()
+		if joinsUnconfirmed(rep) {
+			rep.Claim += " " + joinsAsWritten
+		}
+	}
+}
+
+// joinsAsWritten qualifies the count of joins of a check that did not read
+// every chunk of the whole.
+const joinsAsWritten = "(The count of joins is as written: a check of part of the chunks cannot confirm it.)"
+
+func joinsUnconfirmed(rep *check.Report) bool {
+	return rep.Joined != "" && (rep.Mode != check.ModeFull || rep.Shard != nil)
+}
+
+// verdict is the first line of a report on a valid certificate: what was
+// checked, never more.
+func verdict(rep *check.Report) string {
+	whole := rep.Kind + " certificate"
+	if s := rep.Shard; s != nil {
+		whole = fmt.Sprintf("shard %d of %d (%s) of a %s certificate", s.Index, s.Of, spanText(rep, s), strings.TrimSuffix(rep.Kind, " shard"))
+	}
+	switch rep.Mode {
+	case check.ModeAudit:
+		return fmt.Sprintf("passes an audit of %d of %d %s, not a full check of this %s", rep.Audit.Audited, rep.Audit.Blocks, unitWord(rep, rep.Audit.Blocks), whole)
+	case check.ModeShare:
+		if rep.ShareIsAll() {
+			return fmt.Sprintf("valid as far as checked: %s (share %d of %d: all of them) re-derived, as 'checked' says, of this %s", spanText(rep, rep.Span), rep.Span.Index, rep.Span.Of, whole)
+		}
+		return fmt.Sprintf("valid as far as checked: %s (share %d of %d) re-derived, not a full check of this %s", spanText(rep, rep.Span), rep.Span.Index, rep.Span.Of, whole)
+	case check.ModePart:
+		return fmt.Sprintf("valid as far as checked: %s, against the given root, not a full check of this %s", spanText(rep, rep.Span), whole)
+	}
+	return "valid " + whole
+}
+
+func unitWord(rep *check.Report, n int) string {
+	if strings.HasPrefix(rep.Kind, "range") {
+		return agree(n, "block", "blocks")
+	}
+	return agree(n, "chunk", "chunks")
+}
+
+func spanText(rep *check.Report, s *check.SpanReport) string {
+	if s.Count == 1 {
+		return fmt.Sprintf("%s %d", unitWord(rep, 1), s.First)
+	}
+	return fmt.Sprintf("%s %d to %d", unitWord(rep, 2), s.First, s.First+s.Count-1)
+}
+
+func (c *cli) printReport(rep *check.Report) {
+	w := c.stdout
+	if rep.Valid {
+		fmt.Fprintf(w, "%s: %s\n  root       %s\n", rep.File, verdict(rep), rep.Root)
+		rng := strings.HasPrefix(rep.Kind, "range")
+		if rng {
+			fmt.Fprintf(w, "  sieve      %s\n", rep.SieveRoot)
+		}
+		fmt.Fprintf(w, "  checked    %s\n", rep.Checked())
 		if a := rep.Audit; a != nil {
-			fmt.Fprintf(c.stdout, "  seed       %s (repeat this audit with -seed %s)\n", a.Seed, a.Seed)
+			who := "drawn at random by the checker"
+			if a.SeedFrom == "reader" {
+				who = "given with -seed: it proves something only if the writer could not know it"
+			}
+			fmt.Fprintf(w, "  seed       %s (%s; repeat this audit with -seed %s)\n", a.Seed, who, a.Seed)
 			for _, p := range a.PassIfWrong {
-				fmt.Fprintf(c.stdout, "  audit      if %d of the %d blocks (%.3g%%) were wrong, this audit would pass with probability %.3g\n",
+				fmt.Fprintf(w, "  audit      if %d of the %d blocks (%.3g%%) were wrong, this audit would pass with probability %.3g\n",
 					p.WrongBlocks, a.Blocks, 100*float64(p.WrongBlocks)/float64(a.Blocks), p.Pass)
 			}
 		}
-		return
-	}
-	if rep.Valid {
-		fmt.Fprintf(c.stdout, "%s: valid %s certificate\n  root       %s\n  claim      %s\n",
-			rep.File, rep.Kind, rep.Root, factsFromReport(rep).summary())
+		switch {
+		case rng && rep.Kind == "range":
+			f := rangeFactsFromReport(rep)
+			if rep.Mode == check.ModeFull {
+				fmt.Fprintf(w, "  claim      %s\n  hence      %s\n", f.summary(), strings.TrimPrefix(f.conclusion(), "Hence, by strong induction, "))
+			} else {
+				fmt.Fprintf(w, "  as written %s\n", f.summary())
+			}
+		case rng: // a range shard: its whole's totals are not in it
+		case joinsUnconfirmed(rep):
+			fmt.Fprintf(w, "  claim      %s %s\n", factsFromReport(rep).summary(), joinsAsWritten)
+		default:
+			fmt.Fprintf(w, "  claim      %s\n", factsFromReport(rep).summary())
+		}
+		if rep.BytesRead > 0 {
+			fmt.Fprintf(w, "  read       %d bytes of the file\n", rep.BytesRead)
+		}
 		return
 	}
 	verdict := "INVALID"
@@ -141,11 +206,11 @@ func (c *cli) printReport(rep *check.Report) {
 	case errors.Is(err, check.ErrMalformed):
 		verdict = "MALFORMED"
 	}
-	fmt.Fprintf(c.stdout, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
+	fmt.Fprintf(w, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
 	if rep.Reason == "unreadable" {
 		c.errorf("%s: %v", rep.File, rep.Err())
 	}
-	if w := rep.Where; w != nil && (w.Expected != "" || w.Found != "") {
-		fmt.Fprintf(c.stdout, "  claim      %s\n  expected   %s\n  found      %s\n", w.Claim, w.Expected, w.Found)
+	if wh := rep.Where; wh != nil && (wh.Expected != "" || wh.Found != "") {
+		fmt.Fprintf(w, "  claim      %s\n  expected   %s\n  found      %s\n", wh.Claim, wh.Expected, wh.Found)
 	}
 }

@@ -36,20 +36,31 @@ type excFact struct {
 }
 
 func factsFromHeader(h *cert.SieveHeader) facts {
-	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined}
+	return factsFromReport(sieveReport(h, cert.Hash{}, 0))
+}
+
+// sieveReport is a report of the claim as written in a sieve header: it
+// re-derives nothing (check.ModeUnchecked).
+func sieveReport(h *cert.SieveHeader, root cert.Hash, chunks int) *check.Report {
+	r := &check.Report{Mode: check.ModeUnchecked, Kind: "sieve", Root: root.String(), Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
+		Chunks: chunks, Survivors: check.Num(fmt.Sprint(h.Survivors)), ClosedAt: map[string]check.Num{}, Exceptions: []check.ExceptionReport{}}
+	if h.Joins { // survivors: the classes still to search
+		r.Survivors = check.Num(fmt.Sprint(h.Survivors - h.Joined))
+		r.Joined, r.SieveSurvivors = check.Num(fmt.Sprint(h.Joined)), check.Num(fmt.Sprint(h.Survivors))
+	}
 	for t, n := range h.ClosedAt {
 		if n > 0 {
-			f.Closing = append(f.Closing, closing{Step: t + 1, Classes: n})
+			r.ClosedAt[fmt.Sprint(t+1)] = check.Num(fmt.Sprint(n))
 		}
 	}
 	for _, e := range h.Exceptions {
-		x := excFact{N: e.N.String(), Fate: e.Fate.String(), Steps: e.Steps}
+		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
 		if e.Fate == cert.Cycle {
-			x.CycleMin = e.CycleMin.String()
+			x.CycleMin = check.Num(e.CycleMin.String())
 		}
-		f.Exceptions = append(f.Exceptions, x)
+		r.Exceptions = append(r.Exceptions, x)
 	}
-	return f
+	return r
 }
 
 func factsFromReport(r *check.Report) facts {
@@ -88,14 +99,14 @@ func (f facts) closedClasses() uint64 {
 func (e excFact) fateText(cap uint32) string {
 	switch e.Fate {
 	case "descends":
-		return fmt.Sprintf("descends below itself after %d steps", e.Steps)
+		return "descends below itself after " + count(e.Steps, "step", "steps")
 	case "cycle":
 		if e.CycleMin == e.N {
 			return "lies on a cycle, as its smallest member"
 		}
 		return "reaches the cycle whose smallest member is " + e.CycleMin
 	}
-	return fmt.Sprintf("undecided: neither descends nor repeats within %d steps", cap)
+	return "undecided: neither descends nor repeats within " + count(cap, "step", "steps")
 }
 
 func (f facts) exceptionList() string {
@@ -106,52 +117,50 @@ func (f facts) exceptionList() string {
 	return strings.Join(parts, "; ")
 }
 
-func plural(n int, one, many string) string {
-	if n == 1 {
-		return fmt.Sprintf("%d %s", n, one)
-	}
-	return fmt.Sprintf("%d %s", n, many)
-}
-
 // summary is the claim in one line.
 func (f facts) summary() string {
-	s := fmt.Sprintf("%s: %d of the 2^%d residues survive %s; the rest lie in %s; %s",
-		f.Map, f.Survivors, f.K, plural(f.J, "step", "steps"), plural(int(f.closedClasses()), "closing class", "closing classes"),
-		plural(len(f.Exceptions), "exception", "exceptions"))
+	s := fmt.Sprintf("%s: %d of the 2^%d residues %s %s; the rest lie in %s; %s",
+		f.Map, f.Survivors, f.K, agree(f.Survivors, "survives", "survive"), count(f.J, "step", "steps"),
+		count(f.closedClasses(), "closing class", "closing classes"), count(len(f.Exceptions), "exception", "exceptions"))
 	if len(f.Exceptions) > 0 && len(f.Exceptions) <= 3 {
 		s += " (" + f.exceptionList() + ")"
 	}
 	if f.Joins {
-		s += fmt.Sprintf("; %s smaller residues, %d remain to search", plural(int(f.Joined), "survivor joins", "survivors join"), f.Survivors-f.Joined)
+		s += fmt.Sprintf("; %s, %d %s to search", count(f.Joined, "survivor joins a smaller residue", "survivors join smaller residues"),
+			f.Survivors-f.Joined, agree(f.Survivors-f.Joined, "remains", "remain"))
 	}
 	return s
 }
 
 // joinText is the claim of the joins, fit to quote.
 func (f facts) joinText() string {
-	return fmt.Sprintf(" Of the survivors, %d join a smaller residue: for such a survivor r there is an r' < r "+
+	return fmt.Sprintf(" Of the survivors, %d %s a smaller residue: for such a survivor r there is an r' < r "+
 		"whose first %d steps have as many odd steps as r's and T^%d(r') = T^%d(r), so T^%d(2^%d*q + r) = T^%d(2^%d*q + r') "+
 		"for every q >= 0, and n = 2^%d*q + r reaches what the smaller n - (r - r') reaches. "+
-		"That leaves %d survivor classes to search.", f.Joined, f.K, f.K, f.K, f.K, f.K, f.K, f.K, f.K, f.Survivors-f.Joined)
+		"That leaves %s to search.", f.Joined, agree(f.Joined, "joins", "join"), f.K, f.K, f.K, f.K, f.K, f.K, f.K, f.K,
+		count(f.Survivors-f.Joined, "survivor class", "survivor classes"))
 }
 
 // sentence is the claim fit to quote.
 func (f facts) sentence() string {
 	a, _, _ := strings.Cut(f.Map, "n")
-	s := fmt.Sprintf("Under %s, every residue mod 2^%d lies either in one of %d classes r mod 2^t (t <= %d) "+
-		"that close at step t, or among the %d survivors. A class closes at step t when its first t steps "+
-		"have s odd ones with %s^s < 2^t; then T^t(n) = (%s^s*n + c)/2^t for every member n, so T^t(n) < n "+
+	classes := fmt.Sprintf("one of %d classes r mod 2^t (t <= %d) that close at step t", f.closedClasses(), f.J)
+	if f.closedClasses() == 1 {
+		classes = fmt.Sprintf("the one class r mod 2^t (t <= %d) that closes at step t", f.J)
+	}
+	s := fmt.Sprintf("Under %s, every residue mod 2^%d lies either in %s, or among the survivors (%d of them). "+
+		"A class closes at step t when its first t steps have s odd ones with %s^s < 2^t; then T^t(n) = (%s^s*n + c)/2^t for every member n, so T^t(n) < n "+
 		"for every member above c/(2^t - %s^s).",
-		f.mapText(), f.K, f.closedClasses(), f.J, f.Survivors, a, a, a)
+		f.mapText(), f.K, classes, f.Survivors, a, a, a)
 	switch len(f.Exceptions) {
 	case 0:
 		s += " No positive member of a closing class lies at or below its threshold."
 	case 1:
-		s += fmt.Sprintf(" One member lies at or below its threshold, decided by direct iteration within %d steps: %s.",
-			f.Cap, f.exceptionList())
+		s += fmt.Sprintf(" One member lies at or below its threshold, decided by direct iteration within %s: %s.",
+			count(f.Cap, "step", "steps"), f.exceptionList())
 	default:
-		s += fmt.Sprintf(" The members at or below their threshold are these %d, decided by direct iteration within %d steps: %s.",
-			len(f.Exceptions), f.Cap, f.exceptionList())
+		s += fmt.Sprintf(" The members at or below their threshold are these %d, decided by direct iteration within %s: %s.",
+			len(f.Exceptions), count(f.Cap, "step", "steps"), f.exceptionList())
 	}
 	if f.Joins {
 		s += f.joinText()
@@ -161,11 +170,11 @@ func (f facts) sentence() string {
 
 // caveat says what the claim does not prove.
 func (f facts) caveat() string {
-	return fmt.Sprintf("This is a bounded claim about the first %d steps. Beyond the fates of the exceptions listed, "+
+	return fmt.Sprintf("This is a bounded claim about %s. Beyond the fates of the exceptions listed, "+
 		"it does not show that any number reaches 1 or a cycle: a member that drops below itself is only shown "+
-		"smaller after t steps. It says nothing about the %d survivors beyond step %d, and it is not a proof of "+
-		"the 3n+1 conjecture or of any statement about all integers. A claim about every n below a bound needs, "+
-		"besides this sieve, a search of the survivor classes (a range certificate).", f.J, f.Survivors, f.J) + f.joinCaveat()
+		"smaller after t steps. It says nothing about the %s beyond step %d, and it is not a proof of %s. "+
+		"A claim about every n below a bound needs, besides this sieve, a search of the survivor classes (a range certificate).",
+		firstSteps(f.J), count(f.Survivors, "survivor", "survivors"), f.J, question(f.Map)) + f.joinCaveat()
 }
 
 func (f facts) joinCaveat() string {

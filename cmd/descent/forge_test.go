@@ -15,6 +15,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
+	"descent/check"
 )
 
 // Forgeries: certificates whose hashes and root are recomputed after a
@@ -339,6 +340,9 @@ func checkRangeJSON(t *testing.T, b []byte, sieve string, extra ...string) (int,
 	code, stdout, _ := runCLI(append(append([]string{"check", "-json", "-sieve", sieve}, extra...), path)...)
 	var rep map[string]any
 	require.NoError(t, json.Unmarshal([]byte(stdout), &rep), stdout)
+	if r, ok := rep["reason"].(string); ok {
+		require.Contains(t, check.Reasons, r, "a reason JSON gives is listed in check.Reasons")
+	}
 	return code, rep
 }
 

@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
+	"descent/check"
 )
 
 // joinCut is a sieve certificate with joins taken apart: for each chunk
@@ -202,6 +203,7 @@ func TestJoinForgeriesAreCaught(t *testing.T) {
 			require.Equal(t, exitInvalid, code, "%v", rep)
 			require.Equal(t, false, rep["valid"])
 			require.Equal(t, f.reason, rep["reason"], "%v", rep["error"])
+			require.Contains(t, check.Reasons, f.reason, "the reason is listed in check.Reasons")
 			require.NotEmpty(t, rep["where"])
 		})
 	}

@@ -35,6 +35,7 @@ const usage = `usage:
   descent check -part P -root HEX [-sieve FILE] FILE
   descent show [-json] FILE
   descent report [-sieve FILE] [-sample N [-seed S]] [-workers N] -o FILE CERT...
+  descent version [-json]
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
 emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
@@ -42,6 +43,7 @@ merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
 report      check certificates and write one HTML page of their claims and plots
+version     print the module version, VCS revision and Go version
 
 Run 'descent COMMAND -h' for the flags of a command.
 `
@@ -77,6 +79,8 @@ func (c *cli) run(ctx context.Context, args []string) int {
 		return c.show(args[1:])
 	case "report":
 		return c.report(args[1:])
+	case "version":
+		return c.version(args[1:])
 	case "help", "-h", "-help", "--help":
 		fmt.Fprint(c.stdout, usage)
 		return exitOK

@@ -96,7 +96,7 @@ func (c *cli) report(args []string) int {
 	for _, path := range failed {
 		c.errorf("report: %s failed its check; %s shows why", path, *out)
 	}
-	fmt.Fprintf(c.stdout, "%s: %s, %d failed\n", *out, plural(len(page.Sections), "certificate", "certificates"), len(failed))
+	fmt.Fprintf(c.stdout, "%s: %s, %d failed\n", *out, count(len(page.Sections), "certificate", "certificates"), len(failed))
 	return status
 }
 
@@ -194,7 +194,7 @@ func sieveSection(rep *check.Report, s report.Section) report.Section {
 	if f.Joins {
 		s.Facts = append(s.Facts, report.Fact{Label: "joined", Value: fmt.Sprintf("%d of the survivors; %d remain to search", f.Joined, f.Survivors-f.Joined)})
 	}
-	s.Facts = append(s.Facts, report.Fact{Label: "fate cap", Value: plural(int(f.Cap), "step", "steps")})
+	s.Facts = append(s.Facts, report.Fact{Label: "fate cap", Value: count(int(f.Cap), "step", "steps")})
 	s.Claim, s.Caution = f.sentence(), f.caveat()
 	steps := stepsOfT(f.Map)
 
@@ -244,7 +244,7 @@ func sieveSection(rep *check.Report, s report.Section) report.Section {
 	closing.Plot.Series = []report.Series{{Points: pts}}
 
 	exc := report.Figure{ID: "exceptions", Title: "Exceptions",
-		Caption: fmt.Sprintf("Members at or below their class's threshold, each decided by direct iteration within %s.", plural(int(f.Cap), "step", "steps")),
+		Caption: fmt.Sprintf("Members at or below their class's threshold, each decided by direct iteration within %s.", count(int(f.Cap), "step", "steps")),
 		Table:   report.Table{Columns: []string{"n", "fate"}},
 	}
 	for _, e := range f.Exceptions {
@@ -345,7 +345,7 @@ func rangeSection(rep *check.Report, s report.Section, sievePath string) report.
 	}
 	for i, r := range f.Counts.Rules {
 		rows = append(rows, row{fmt.Sprintf("rule %d", i+1), fmt.Sprintf("rule %d: of the form %s, resting on the smaller predecessor %s (%s)",
-			i+1, r.Class, r.Predecessor, plural(r.Steps, "step", "steps")), r.Numbers})
+			i+1, r.Class, r.Predecessor, count(r.Steps, "step", "steps")), r.Numbers})
 	}
 	var pts []report.XY
 	for i, r := range rows {

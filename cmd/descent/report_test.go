@@ -125,7 +125,7 @@ func checkJSONLines(t *testing.T, args ...string) []map[string]any {
 }
 
 // jsonNum writes a number of check -json as the decimal the page shows.
-func jsonNum(v any) string {
+func jsonText(v any) string {
 	switch x := v.(type) {
 	case float64:
 		return strconv.FormatFloat(x, 'f', -1, 64)
@@ -180,7 +180,7 @@ func TestReportInBrowser(t *testing.T) {
 		require.Equal(t, strconv.Itoa(t1+1), row[0])
 		require.Equal(t, a076227[t1], row[1], "survivors after step %d (OEIS A076227)", t1+1)
 	}
-	require.Equal(t, jsonNum(want[0]["survivors"]), surv[19][1])
+	require.Equal(t, jsonText(want[0]["survivors"]), surv[19][1])
 	for _, s := range []int{0, 1} {
 		closedAt := want[s]["closed_at"].(map[string]any)
 		for _, row := range got[s].Tables["closing"] {
@@ -188,12 +188,12 @@ func TestReportInBrowser(t *testing.T) {
 			if !ok {
 				w = 0.0
 			}
-			require.Equal(t, jsonNum(w), row[1], "classes closing at step %s", row[0])
+			require.Equal(t, jsonText(w), row[1], "classes closing at step %s", row[0])
 		}
 		exc := want[s]["exceptions"].([]any)
 		require.Len(t, got[s].Tables["exceptions"], len(exc))
 		for i, e := range exc {
-			require.Equal(t, jsonNum(e.(map[string]any)["n"]), got[s].Tables["exceptions"][i][0])
+			require.Equal(t, jsonText(e.(map[string]any)["n"]), got[s].Tables["exceptions"][i][0])
 		}
 	}
 
@@ -206,15 +206,15 @@ func TestReportInBrowser(t *testing.T) {
 	var ns []string
 	for i, r := range recs {
 		r := r.(map[string]any)
-		require.Equal(t, jsonNum(r["n"]), rows[i][0])
-		require.Equal(t, jsonNum(r["stopping_time"]), rows[i][1])
+		require.Equal(t, jsonText(r["n"]), rows[i][0])
+		require.Equal(t, jsonText(r["stopping_time"]), rows[i][1])
 		ns = append(ns, rows[i][0])
 	}
 	require.Equal(t, []string{"2", "3", "7", "27", "703", "10087", "35655", "270271", "362343", "381727", "626331", "1027431"}, ns, "OEIS A060412")
 	counts := rng["counts"].(map[string]any)
 	just := got[2].Tables["justification"]
 	for i, key := range []string{"sieve", "search", "small", "cycle", "undecided"} {
-		require.Equal(t, jsonNum(counts[key]), just[i][1], key)
+		require.Equal(t, jsonText(counts[key]), just[i][1], key)
 	}
 	// The block maxima: as many rows as blocks, the largest of them the
 	// range's largest stopping time.
@@ -227,7 +227,7 @@ func TestReportInBrowser(t *testing.T) {
 		}
 		require.Equal(t, "re-derived", b[5])
 	}
-	require.Equal(t, jsonNum(rng["max_stopping_time"].(map[string]any)["stopping_time"]), strconv.Itoa(best))
+	require.Equal(t, jsonText(rng["max_stopping_time"].(map[string]any)["stopping_time"]), strconv.Itoa(best))
 	require.Equal(t, 3, got[2].SVGs, "justification, records and block maxima")
 
 	// Not blank: a measurable share of the pixels is not the background.

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -13,27 +14,6 @@ import (
 	"descent/cert"
 	"descent/check"
 )
-
-// showReport is the -json form of show. It states the claim as written in
-// the header; Verified is always false, since show re-derives nothing.
-type showReport struct {
-	File       string                  `json:"file"`
-	Kind       string                  `json:"kind"`
-	Root       string                  `json:"root"`
-	Verified   bool                    `json:"verified"`
-	Map        string                  `json:"map"`
-	K          int                     `json:"k"`
-	J          int                     `json:"j"`
-	Cap        uint32                  `json:"cap"`
-	Chunks     int                     `json:"chunks"`
-	Survivors  check.Num               `json:"survivors"`
-	Joined     check.Num               `json:"joined,omitempty"`
-	Before     check.Num               `json:"sieve_survivors,omitempty"`
-	ClosedAt   map[string]check.Num    `json:"closed_at"`
-	Exceptions []check.ExceptionReport `json:"exceptions"`
-	Claim      string                  `json:"claim"`
-	NotProven  string                  `json:"not_proven"`
-}
 
 func (c *cli) show(args []string) int {
 	fs := c.flags("show", "show [-json] FILE")
@@ -62,25 +42,27 @@ func (c *cli) show(args []string) int {
 		}
 		return exitUsage
 	}
-	f := factsFromHeader(h)
+	rep := sieveReport(h, root, h.Chunks)
+	rep.File = path
+	f := factsFromReport(rep)
 	if *asJSON {
-		rep := showReport{File: path, Kind: "sieve", Root: root.String(), Map: f.Map, K: f.K, J: f.J, Cap: f.Cap,
-			Chunks: h.Chunks, Survivors: check.Num(fmt.Sprint(f.Survivors)), ClosedAt: map[string]check.Num{},
-			Exceptions: []check.ExceptionReport{}, Claim: f.sentence(), NotProven: f.caveat()}
-		if f.Joins { // survivors: the classes still to search
-			rep.Survivors, rep.Joined, rep.Before = check.Num(fmt.Sprint(f.Survivors-f.Joined)), check.Num(fmt.Sprint(f.Joined)), rep.Survivors
-		}
-		for _, cl := range f.Closing {
-			rep.ClosedAt[fmt.Sprint(cl.Step)] = check.Num(fmt.Sprint(cl.Classes))
-		}
-		for _, e := range f.Exceptions {
-			rep.Exceptions = append(rep.Exceptions, check.ExceptionReport{N: check.Num(e.N), Fate: e.Fate, Steps: e.Steps, CycleMin: check.Num(e.CycleMin)})
-		}
-		b, _ := json.MarshalIndent(rep, "", "  ")
-		fmt.Fprintf(c.stdout, "%s\n", b)
-		return exitOK
+		rep.Claim, rep.NotProven = f.sentence(), f.caveat()
+		return c.writeJSON(rep)
 	}
 	c.printShow(path, h, root, f)
+	return exitOK
+}
+
+// writeJSON writes one report as one line of JSON.
+func (c *cli) writeJSON(v any) int {
+	var b bytes.Buffer
+	enc := json.NewEncoder(&b)
+	enc.SetEscapeHTML(false) // the claims compare with < and >
+	if err := enc.Encode(v); err != nil {
+		c.errorf("%v", err)
+		return exitUsage
+	}
+	c.stdout.Write(b.Bytes())
 	return exitOK
 }
 
@@ -136,10 +118,11 @@ func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f fact
 	fmt.Fprintf(tw, "  modulus\t2^%d (k = %d); classes may close at steps 1..%d (j = %d)\n", f.K, f.K, f.J, f.J)
 	fmt.Fprintf(tw, "  survivors\t%d of the 2^%d residues\n", f.Survivors, f.K)
 	if f.Joins {
-		fmt.Fprintf(tw, "  joined\t%d of the survivors join a smaller residue; %d remain to search\n", f.Joined, f.Survivors-f.Joined)
+		fmt.Fprintf(tw, "  joined\t%d of the survivors %s a smaller residue; %d %s to search\n", f.Joined, agree(f.Joined, "joins", "join"),
+			f.Survivors-f.Joined, agree(f.Survivors-f.Joined, "remains", "remain"))
 	}
 	fmt.Fprintf(tw, "  chunks\t%d: the top of the trie (depths 0..%d) and one per class open at depth %d\n", h.Chunks, cert.SplitDepth(f.J), cert.SplitDepth(f.J))
-	fmt.Fprintf(tw, "  fate cap\t%d steps\n", f.Cap)
+	fmt.Fprintf(tw, "  fate cap\t%s of T\n", count(f.Cap, "step", "steps"))
 	tw.Flush()
 
 	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
@@ -218,28 +201,6 @@ func readRange(path string) (*cert.RangeHeader, cert.Hash, []*big.Int, error) {
 	return h, rd.Root(), undecided, nil
 }
 
-type showRangeReport struct {
-	File            string               `json:"file"`
-	Kind            string               `json:"kind"`
-	Root            string               `json:"root"`
-	Verified        bool                 `json:"verified"`
-	SieveRoot       string               `json:"sieve_root"`
-	Map             string               `json:"map"`
-	From            check.Num            `json:"from"`
-	To              check.Num            `json:"to"`
-	K               int                  `json:"k"`
-	BlockExp        int                  `json:"block_exponent"`
-	Cap             uint32               `json:"cap"`
-	Blocks          int                  `json:"blocks"`
-	Counts          check.RangeCounts    `json:"counts"`
-	Records         []check.RecordReport `json:"records"`
-	MaxStoppingTime *check.RecordReport  `json:"max_stopping_time"`
-	Cycles          []check.CycleReport  `json:"cycles"`
-	Undecided       []check.Num          `json:"undecided"`
-	Claim           string               `json:"claim"`
-	NotProven       string               `json:"not_proven"`
-}
-
 func (c *cli) showRange(path string, asJSON bool) int {
 	h, root, undecided, err := readRange(path)
 	if err != nil {
@@ -250,67 +211,68 @@ func (c *cli) showRange(path string, asJSON bool) int {
 		}
 		return exitUsage
 	}
-	f := rangeFactsFromHeader(h)
-	und := []check.Num{}
-	for _, n := range undecided {
-		und = append(und, num(n))
-	}
+	rep := rangeReport(h, root, undecided)
+	rep.File = path
+	addStandardSteps(rep)
+	f := rangeFactsFromReport(rep)
 	if asJSON {
-		rep := showRangeReport{File: path, Kind: "range", Root: root.String(), SieveRoot: f.SieveRoot, Map: f.Map,
-			From: check.Num(f.Lo), To: check.Num(f.Hi), K: f.K, BlockExp: f.E, Cap: f.Cap, Blocks: h.Blocks, Counts: f.Counts,
-			Records: orEmpty(f.Records), MaxStoppingTime: f.Max, Cycles: orEmpty(f.Cycles), Undecided: und,
-			Claim: f.sentence(), NotProven: f.caveat()}
-		b, _ := json.MarshalIndent(rep, "", "  ")
-		fmt.Fprintf(c.stdout, "%s\n", b)
-		return exitOK
+		rep.Claim, rep.NotProven = f.sentence(), f.caveat()
+		return c.writeJSON(rep)
 	}
+	und := rep.Undecided
 	w := c.stdout
 	fmt.Fprintf(w, "%s: descent range certificate\n\n", path)
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	fmt.Fprintf(tw, "  root\t%v\n", root)
-	fmt.Fprintf(tw, "  map\tT(n) = n/2 for even n, (%s)/2 for odd n\n", f.Map)
-	fmt.Fprintf(tw, "  range\t[%s, %s)\n", f.Lo, f.Hi)
+	fmt.Fprintf(tw, "  map\t%s\n", f.mapText())
+	fmt.Fprintf(tw, "  range\t%s\n", f.rangeText())
 	fmt.Fprintf(tw, "  sieve\t%s (k = %d)\n", f.SieveRoot, f.K)
-	fmt.Fprintf(tw, "  blocks\t%d of 2^%d numbers\n", h.Blocks, f.E)
-	fmt.Fprintf(tw, "  step cap\t%d\n", f.Cap)
+	fmt.Fprintf(tw, "  blocks\t%s of 2^%d numbers\n", count(h.Blocks, "block", "blocks"), f.E)
+	fmt.Fprintf(tw, "  step cap\t%s of T\n", count(f.Cap, "step", "steps"))
 	tw.Flush()
 	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
 	fmt.Fprintf(w, "\nWhat it does not prove\n%s\n", wrap(f.caveat(), 76, "  "))
 	fmt.Fprintf(w, "\nHow the numbers are justified\n")
 	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
 	for _, row := range [][2]string{
-		{"in a closing class of the sieve (stopping time = its closing step)", string(f.Counts.Sieve)},
-		{"in a survivor class, searched until they drop", string(f.Counts.Search)},
-		{"small numbers, iterated directly", string(f.Counts.Small)},
-		{"reach a cycle without dropping", string(f.Counts.Cycle)},
-		{"undecided within the cap", string(f.Counts.Undecided)},
+		{string(f.Counts.Sieve), "in a closing class of the sieve: stopping time = the closing step"},
+		{string(f.Counts.Search), "in a survivor class, searched until " + agree(f.Counts.Search, "it drops", "they drop")},
+		{string(f.Counts.Small), agree(f.Counts.Small, "small number, iterated directly until it drops", "small numbers, iterated directly until they drop")},
 	} {
-		fmt.Fprintf(tw, "  %s\t  %s\n", row[1], row[0])
+		fmt.Fprintf(tw, "  %s\t  %s\n", row[0], row[1])
 	}
 	for _, r := range f.Counts.Rules {
-		fmt.Fprintf(tw, "  %s\t  of the form %s, with the smaller predecessor %s (%s)\n", r.Numbers, r.Class, r.Predecessor, plural(r.Steps, "step", "steps"))
+		fmt.Fprintf(tw, "  %s\t  of the form %s in a survivor class, resting on the smaller predecessor %s (%s)\n", r.Numbers, r.Class, r.Predecessor, count(r.Steps, "step", "steps"))
 	}
+	fmt.Fprintf(tw, "  %s\t  %s a cycle without dropping\n", f.Counts.Cycle, agree(f.Counts.Cycle, "reaches", "reach"))
+	fmt.Fprintf(tw, "  %s\t  undecided within the cap\n", f.Counts.Undecided)
 	tw.Flush()
+
+	fmt.Fprintf(w, "\nStopping times (%s)\n", stepsLabel(f.Map))
+	fmt.Fprintf(w, "  stated for %s: those justified by the sieve, by search or as small ones\n", count(f.Counts.Stated(), "number", "numbers"))
+	if n := f.ruleNumbers(); n.Sign() > 0 {
+		fmt.Fprintf(w, "  not stated for the %s resting on predecessor rules: theirs may be larger\n", count(n.String(), "number", "numbers"))
+	}
 	if f.Max != nil {
-		fmt.Fprintf(w, "\nLargest stopping time: %d steps, first at n = %s\n", f.Max.StoppingTime, f.Max.N)
+		fmt.Fprintf(w, "  the largest stated: %s, first at n = %s\n", stoppingTimeText(f.Max), f.Max.N)
+		fmt.Fprintf(w, "\nStopping-time records: each n with a stated stopping time larger than that of every\nsmaller n of the range with a stated stopping time\n")
+		tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintf(tw, "  n\tsteps of T\tstandard steps\t\n")
+		for _, r := range f.Records {
+			std := "-"
+			if r.StandardSteps > 0 {
+				std = fmt.Sprint(r.StandardSteps)
+			}
+			fmt.Fprintf(tw, "  %s\t%d\t%s\t\n", r.N, r.StoppingTime, std)
+		}
+		tw.Flush()
 	}
-	if len(f.Counts.Rules) > 0 {
-		fmt.Fprintf(w, "\nStopping-time records, among the numbers not justified by a predecessor rule (those have no stopping time here)\n")
-	} else {
-		fmt.Fprintf(w, "\nStopping-time records (n whose stopping time exceeds that of every smaller n in the range)\n")
-	}
-	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintf(tw, "  n\tstopping time\t\n")
-	for _, r := range f.Records {
-		fmt.Fprintf(tw, "  %s\t%d\t\n", r.N, r.StoppingTime)
-	}
-	tw.Flush()
 	fmt.Fprintf(w, "\nCycles reached without dropping\n")
 	if len(f.Cycles) == 0 {
 		fmt.Fprintf(w, "  none\n")
 	}
 	for _, cy := range f.Cycles {
-		fmt.Fprintf(w, "  the cycle whose smallest member is %s: %s numbers\n", cy.Min, cy.Count)
+		fmt.Fprintf(w, "  the cycle whose smallest member is %s: %s\n", cy.Min, count(cy.Count, "number", "numbers"))
 	}
 	fmt.Fprintf(w, "\nUndecided numbers\n")
 	if len(und) == 0 {
@@ -327,11 +289,18 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	return exitOK
 }
 
-func orEmpty[T any](s []T) []T {
-	if s == nil {
-		return []T{}
-	}
-	return s
+// shardShow is the -json form of show for a shard file.
+type shardShow struct {
+	File      string `json:"file"`
+	Mode      string `json:"mode"`
+	Checked   string `json:"checked"`
+	Kind      string `json:"kind"`
+	ShardRoot string `json:"shard_root"`
+	Index     int    `json:"index"`
+	Of        int    `json:"of"`
+	First     int    `json:"first"`
+	Count     int    `json:"count"`
+	Whole     string `json:"whole"`
 }
 
 // showShard says what a shard is and which certificate it is part of.
@@ -357,25 +326,27 @@ func (c *cli) showShard(path string, asJSON bool) int {
 		}
 		return exitUsage
 	}
-	kind := "sieve"
+	kind, unit := "sieve", "chunks"
 	summary := ""
 	if h.Whole == cert.KindRange {
-		kind = "range"
+		kind, unit = "range", "blocks"
 		if rh, err := cert.ParseRangeHeader(h.WholeHeader); err == nil {
-			summary = fmt.Sprintf("%s over [%v, %v), blocks of 2^%d, sieve %v", rh.Map, rh.Lo, rh.Hi, rh.E, rh.SieveRoot)
+			summary = fmt.Sprintf("%s over %s, blocks of 2^%d numbers, sieve %v", rh.Map, rangeText(rh.Lo.String(), rh.Hi.String()), rh.E, rh.SieveRoot)
 		}
 	} else if sh, err := cert.ParseSieveHeader(h.WholeHeader); err == nil {
 		summary = factsFromHeader(sh).summary()
 	}
+	span := fmt.Sprintf("%s %d to %d", unit, h.First, h.First+h.Count-1)
+	if h.Count == 1 {
+		span = fmt.Sprintf("%s %d", strings.TrimSuffix(unit, "s"), h.First)
+	}
 	if asJSON {
-		b, _ := json.MarshalIndent(map[string]any{"file": path, "kind": kind + " shard", "shard_root": rd.Root().String(),
-			"index": h.Index, "of": h.Of, "first": h.First, "count": h.Count, "whole": summary, "verified": false}, "", "  ")
-		fmt.Fprintf(c.stdout, "%s\n", b)
-		return exitOK
+		return c.writeJSON(shardShow{File: path, Mode: check.ModeUnchecked, Checked: "nothing: the shard as written, whose stored tree agrees with its header",
+			Kind: kind + " shard", ShardRoot: rd.Root().String(), Index: h.Index, Of: h.Of, First: h.First, Count: h.Count, Whole: summary})
 	}
 	fmt.Fprintf(c.stdout, "%s: shard %d of %d of a %s certificate\n\n", path, h.Index, h.Of, kind)
 	fmt.Fprintf(c.stdout, "  shard root  %v (this file; the whole's root exists once the shards are merged)\n", rd.Root())
-	fmt.Fprintf(c.stdout, "  records     %d to %d of the whole\n", h.First, h.First+h.Count-1)
+	fmt.Fprintf(c.stdout, "  records     %s of the whole\n", span)
 	fmt.Fprintf(c.stdout, "  the whole   %s\n\n", summary)
 	fmt.Fprintf(c.stdout, "A shard proves only the claims of its own records. 'descent merge' puts the shards\ntogether; 'descent check %s' re-derives this one alone.\n", path)
 	return exitOK

@@ -575,6 +575,9 @@ func TestVectors(t *testing.T) {
 		require.NoError(t, os.WriteFile(path, v.data, 0o644))
 		rep := check.Check(bytes.NewReader(v.data), check.Options{Sieve: sieves[v.sieve]})
 		got["check"] = checkClass(rep)
+		if _, listed := check.Reasons[rep.Reason]; rep.Reason != "" && !listed {
+			failures = append(failures, fmt.Sprintf("%s: reason %q is not listed in check.Reasons", v.name, rep.Reason))
+		}
 		code, _, _ := runCLI("show", path)
 		got["show"] = map[int]string{exitOK: "ok", exitInvalid: "hash", exitUsage: "malformed"}[code]
 		margs := []string{"merge", "-o", filepath.Join(dir, "merged.dcert"), path}
