@@ -200,14 +200,14 @@ func TestReportInBrowser(t *testing.T) {
 	// The range [1, 2^20): records as check -json has them, which are the
 	// stopping-time records of OEIS A060412 below 2^20.
 	rng := want[2]
-	recs := rng["records"].([]any)
+	recs := rng["stated_stopping_times"].(map[string]any)["records"].([]any)
 	rows := got[2].Tables["records"]
 	require.Len(t, rows, len(recs))
 	var ns []string
 	for i, r := range recs {
 		r := r.(map[string]any)
 		require.Equal(t, jsonText(r["n"]), rows[i][0])
-		require.Equal(t, jsonText(r["stopping_time"]), rows[i][1])
+		require.Equal(t, jsonText(r["steps"]), rows[i][1])
 		ns = append(ns, rows[i][0])
 	}
 	require.Equal(t, []string{"2", "3", "7", "27", "703", "10087", "35655", "270271", "362343", "381727", "626331", "1027431"}, ns, "OEIS A060412")
@@ -227,7 +227,7 @@ func TestReportInBrowser(t *testing.T) {
 		}
 		require.Equal(t, "re-derived", b[5])
 	}
-	require.Equal(t, jsonText(rng["max_stopping_time"].(map[string]any)["stopping_time"]), strconv.Itoa(best))
+	require.Equal(t, jsonText(rng["stated_stopping_times"].(map[string]any)["max"].(map[string]any)["steps"]), strconv.Itoa(best))
 	require.Equal(t, 3, got[2].SVGs, "justification, records and block maxima")
 
 	// Not blank: a measurable share of the pixels is not the background.
