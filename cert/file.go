@@ -308,13 +308,13 @@ var ErrHashMismatch = errors.New("hash mismatch")
 // leaves 1.. are only as good as the records they stand for.
 func (rd *Reader) CheckTree() error {
 	if got := LeafHash(rd.Header); got != rd.Levels[0][0] {
-		return fmt.Errorf("cert: the header hashes to %v, the stored tree says %v: %w", got, rd.Levels[0][0], ErrHashMismatch)
+		return fmt.Errorf("the header hashes to %v, the stored tree says %v: %w", got, rd.Levels[0][0], ErrHashMismatch)
 	}
 	want := Levels(rd.Levels[0])
 	for l := range want {
 		for i := range want[l] {
 			if want[l][i] != rd.Levels[l][i] {
-				return fmt.Errorf("cert: stored tree level %d, hash %d does not match its children: %w", l, i, ErrHashMismatch)
+				return fmt.Errorf("stored tree level %d, hash %d does not match its children: %w", l, i, ErrHashMismatch)
 			}
 		}
 	}

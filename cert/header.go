@@ -26,11 +26,11 @@ func ParseMap(s string) (Map, error) {
 	}
 	a, err := strconv.ParseUint(t[:i], 10, 32)
 	if err != nil {
-		return Map{}, fmt.Errorf("map %q: multiplier: %v", s, err)
+		return Map{}, fmt.Errorf("map %q: the multiplier %s is not a whole number below 2^32", s, t[:i])
 	}
 	b, err := strconv.ParseInt(t[i+1:], 10, 32)
 	if err != nil {
-		return Map{}, fmt.Errorf("map %q: bad constant", s)
+		return Map{}, fmt.Errorf("map %q: the constant %s is not a whole number between -2^31 and 2^31", s, t[i+1:])
 	}
 	m := Map{A: uint32(a), B: int32(b)}
 	return m, m.Validate()

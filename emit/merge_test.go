@@ -3,6 +3,7 @@ package emit
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"math/big"
 	"math/rand/v2"
 	"testing"
@@ -110,23 +111,41 @@ func TestMergeRefuses(t *testing.T) {
 	a0, a1, a2 := shard(cert.Collatz, 14, 14, 0, 3), shard(cert.Collatz, 14, 14, 1, 3), shard(cert.Collatz, 14, 14, 2, 3)
 	bad := bytes.Clone(a1)
 	bad[len(bad)-1] ^= 1
+	// A flipped bit in the stored tree, just after the header.
+	tree := bytes.Clone(a2)
+	rd, err := cert.NewReader(bytes.NewReader(a2))
+	require.NoError(t, err)
+	tree[len(rd.Header)+40] ^= 1
+	rd1, err := cert.NewReader(bytes.NewReader(a1))
+	require.NoError(t, err)
+	h1, err := cert.ParseShardHeader(rd1.Header)
+	require.NoError(t, err)
+	lastRecord := fmt.Sprintf("b: record %d of the whole (its record %d) does not match the hash the shard stores", h1.First+h1.Count-1, h1.Count-1)
 	_, whole := emitSieve(t, cert.Collatz, 14, 14, Options{})
 	for _, c := range []struct {
 		name   string
 		shards []ShardInput
 		reason string
+		class  error // ErrShardSet: the files chosen; ErrShardHash: a damaged shard
 	}{
-		{"a missing shard", in(a0, a2), "shard 1 of 3 is missing"},
-		{"a duplicate shard", in(a0, a1, a1, a2), "are both shard 1"},
-		{"another map", in(a0, shard(cert.Map{A: 3, B: -1}, 14, 14, 1, 3), a2), "a shard of another certificate"},
-		{"another k", in(a0, shard(cert.Collatz, 15, 14, 1, 3), a2), "a shard of another certificate"},
-		{"another j", in(a0, shard(cert.Collatz, 14, 13, 1, 3), a2), "a shard of another certificate"},
-		{"another shard count", in(a0, a1, shard(cert.Collatz, 14, 14, 2, 4)), "is of 3"},
-		{"a damaged shard", in(a0, bad, a2), "does not match its hash"},
-		{"a whole certificate", in(a0, whole, a2), "is not a shard"},
+		{"a missing shard", in(a0, a2), "shard 1 of 3 is missing", ErrShardSet},
+		{"a duplicate shard", in(a0, a1, a1, a2), "are both shard 1", ErrShardSet},
+		{"another map", in(a0, shard(cert.Map{A: 3, B: -1}, 14, 14, 1, 3), a2), "a shard of another certificate", ErrShardSet},
+		{"another k", in(a0, shard(cert.Collatz, 15, 14, 1, 3), a2), "a shard of another certificate", ErrShardSet},
+		{"another j", in(a0, shard(cert.Collatz, 14, 13, 1, 3), a2), "a shard of another certificate", ErrShardSet},
+		{"another shard count", in(a0, a1, shard(cert.Collatz, 14, 14, 2, 4)), "is one of 3", ErrShardSet},
+		{"a damaged shard", in(a0, bad, a2), lastRecord, ErrShardHash},
+		{"a damaged stored tree", in(a0, a1, tree), "c: its header and stored tree do not match", ErrShardHash},
+		{"a whole certificate", in(a0, whole, a2), "b is a sieve certificate, not a shard", ErrShardSet},
 	} {
 		_, err := merged(t, c.shards)
 		require.ErrorContains(t, err, c.reason, c.name)
+		require.ErrorIs(t, err, c.class, c.name)
+		other := ErrShardHash
+		if c.class == ErrShardHash {
+			other = ErrShardSet
+		}
+		require.NotErrorIs(t, err, other, c.name)
 	}
 	// A range shard resting on another sieve root.
 	s1, _ := emitSieve(t, cert.Collatz, 10, 10, Options{})
@@ -139,6 +158,7 @@ func TestMergeRefuses(t *testing.T) {
 		require.NoError(t, err)
 		return f.b
 	}
-	_, err := merged(t, in(rs(s1, 0), rs(s2, 1)))
+	_, err = merged(t, in(rs(s1, 0), rs(s2, 1)))
 	require.ErrorContains(t, err, "a shard of another certificate")
+	require.ErrorIs(t, err, ErrShardSet)
 }

@@ -10,13 +10,13 @@ import (
 )
 
 func (c *cli) check(args []string) int {
-	fs := c.flags("check", "check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] FILE...")
+	fs := c.flags("check")
 	asJSON := fs.Bool("json", false, "write one JSON report per certificate, one per line")
 	rootHex := fs.String("root", "", "the published root `HEX` the certificate must have")
-	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
+	workers := fs.Int("workers", 0, "`N` parallel workers (default 0: all cores)")
 	sieve := fs.String("sieve", "", "for a range certificate: the sieve certificate `FILE` it rests on")
 	sampleN := fs.Int("sample", 0, "for a range certificate: re-derive only `N` blocks, chosen from the root and -seed")
-	seed := fs.String("seed", "", "the reader's own `seed` for choosing the sampled blocks")
+	seed := fs.String("seed", "", "the reader's own seed `S` for choosing the sampled blocks (needs -sample)")
 	shardFlag := fs.String("shard", "", "re-derive only share `i/N` of the records (or auto, auto/N, from the scheduler)")
 	part := fs.String("part", "", "check only record `P`, or share i/N, against -root through the Merkle audit path")
 	if code, stop := c.parse(fs, args); stop {
@@ -30,8 +30,7 @@ func (c *cli) check(args []string) int {
 	if !c.workersOK("check", *workers) {
 		return exitUsage
 	}
-	if *sampleN < 0 {
-		c.errorf("check: -sample %d: want a positive number of blocks", *sampleN)
+	if !c.checkFlagsOK(fs) {
 		return exitUsage
 	}
 	if *seed != "" {
@@ -59,6 +58,9 @@ func (c *cli) check(args []string) int {
 			return exitUsage
 		}
 		o.Root = &root
+	}
+	if !c.checkKindsOK(fs) {
+		return exitUsage
 	}
 	status := exitOK
 	for _, path := range fs.Args() {

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"strings"
 
 	"descent/cert"
 	"descent/emit"
@@ -14,24 +15,30 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	if len(args) > 0 && args[0] == "range" {
 		return c.emitRange(ctx, args[1:])
 	}
+	if len(args) > 0 && (args[0] == "-h" || args[0] == "-help" || args[0] == "--help") {
+		fmt.Fprintf(c.stdout, "usage: %s\n\nRun 'descent emit sieve -h' or 'descent emit range -h' for the flags.\n", strings.Join(synopsis("emit"), "\n       "))
+		return exitOK
+	}
 	if len(args) == 0 || args[0] != "sieve" {
-		c.errorf("emit: want a certificate kind: descent emit sieve ... or descent emit range ...")
+		c.errorf("emit: want a certificate kind first: descent emit sieve ... or descent emit range ...")
 		return exitUsage
 	}
-	fs := c.flags("emit sieve", "emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-join] -o FILE")
+	fs := c.flags("emit sieve")
 	k := fs.Int("k", 24, "modulus exponent: the sieve covers the residues mod 2^`K` (1 to 64)")
-	j := fs.Int("j", 0, "step budget `J` <= K: classes may close at steps 1..J (default K)")
+	j := fs.Int("j", 0, "step budget `J`, 1 to K: classes may close at steps 1..J (default K)")
 	mapFlag := fs.String("map", "3n+1", "the `map` T: n/2 for even n, (an+b)/2 for odd n, written an+b or an-b")
-	capFlag := fs.Uint("cap", emit.DefaultCap, "step `cap` for deciding the fate of each exception")
+	capFlag := fs.Uint("cap", emit.DefaultCap, "step cap `N` for deciding the fate of each exception")
 	join := fs.Bool("join", false, "also claim joins: survivors whose path meets that of a smaller residue after k steps (needs j = k)")
-	workers := fs.Int("workers", 0, "parallel chunk encoders (default: all cores)")
+	workers := fs.Int("workers", 0, "`N` parallel chunk encoders (default 0: all cores)")
 	shardFlag := fs.String("shard", "", "write only shard `i/N` (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
+	replace := fs.Bool("replace", false, "replace FILE if it exists (never an input, a folder or a device)")
 	out := fs.String("o", "", "write the certificate to `FILE`")
 	if code, stop := c.parse(fs, args[1:]); stop {
 		return code
 	}
+	set := given(fs)
 	if fs.NArg() > 0 {
-		c.errorf("emit sieve: unexpected argument %q", fs.Arg(0))
+		c.errorf("emit sieve: unexpected argument %q: emit sieve reads no file", fs.Arg(0))
 		return exitUsage
 	}
 	if !c.workersOK("emit sieve", *workers) {
@@ -48,10 +55,15 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	}
 	m, err := cert.ParseMap(*mapFlag)
 	if err != nil {
-		c.errorf("emit sieve: %v", err)
+		c.errorf("emit sieve: -%v", err)
 		return exitUsage
 	}
-	if *j == 0 {
+	if set["j"] && *j == 0 {
+		c.errorf("emit sieve: -j 0: want 1 to k = %d", *k)
+		c.hintf("leave -j out for j = k")
+		return exitUsage
+	}
+	if !set["j"] {
 		*j = *k
 	}
 	if *k < 1 || *k > cert.MaxK || *j < 1 || *j > *k {
@@ -67,9 +79,8 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 
-	f, err := createAtomic(*out)
-	if err != nil {
-		c.errorf("emit sieve: %v", err)
+	f, ok := c.createOutput(ctx, "emit sieve", *out, *replace, nil)
+	if !ok {
 		return exitUsage
 	}
 	update, finish := c.progress("chunks")
@@ -87,10 +98,10 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	}
 	if err != nil {
 		if errors.Is(err, context.Canceled) {
-			c.errorf("emit sieve: interrupted; %s was not written", *out)
-		} else {
-			c.errorf("emit sieve: %s: %v", *out, err)
+			c.errorf("emit sieve: %v; nothing was written to %s", context.Cause(ctx), *out)
+			return stopStatus(ctx)
 		}
+		c.errorf("emit sieve: %v", err)
 		return exitUsage
 	}
 	h := res.Header

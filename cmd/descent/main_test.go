@@ -3,10 +3,13 @@ package main
 import (
 	"bytes"
 	"context"
+	"errors"
 	"fmt"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strconv"
+	"syscall"
 	"testing"
 
 	"github.com/rogpeppe/go-internal/testscript"
@@ -45,6 +48,39 @@ func TestScripts(t *testing.T) {
 				n, err := strconv.Atoi(args[1])
 				ts.Check(err)
 				ts.Check(os.Truncate(ts.MkAbs(args[0]), int64(n)))
+			},
+			// exits N PROGRAM ARGS...: run a program, as exec does, and
+			// require its exit status to be N.
+			"exits": func(ts *testscript.TestScript, neg bool, args []string) {
+				if len(args) < 2 || neg {
+					ts.Fatalf("usage: exits N PROGRAM [ARGS...]")
+				}
+				want, err := strconv.Atoi(args[0])
+				ts.Check(err)
+				got := 0
+				var exit *exec.ExitError
+				if err := ts.Exec(args[1], args[2:]...); errors.As(err, &exit) {
+					got = exit.ExitCode()
+				} else {
+					ts.Check(err)
+				}
+				if got != want {
+					ts.Fatalf("%s exited with status %d, want %d", args[1], got, want)
+				}
+			},
+			// mkfifo NAME: make a named pipe.
+			"mkfifo": func(ts *testscript.TestScript, neg bool, args []string) {
+				if len(args) != 1 {
+					ts.Fatalf("usage: mkfifo NAME")
+				}
+				ts.Check(syscall.Mkfifo(ts.MkAbs(args[0]), 0o644))
+			},
+			// link OLD NEW: make a hard link.
+			"link": func(ts *testscript.TestScript, neg bool, args []string) {
+				if len(args) != 2 {
+					ts.Fatalf("usage: link OLD NEW")
+				}
+				ts.Check(os.Link(ts.MkAbs(args[0]), ts.MkAbs(args[1])))
 			},
 			// size FILE N: the file has N bytes.
 			"size": func(ts *testscript.TestScript, neg bool, args []string) {

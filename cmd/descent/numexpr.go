@@ -22,7 +22,7 @@ func parseNumber(s string) (*big.Int, error) {
 	for len(t) > 0 {
 		end := strings.IndexAny(t, "+-")
 		if end == 0 {
-			return nil, fmt.Errorf("%q: a term is missing", s)
+			return nil, fmt.Errorf("%s: a term is missing", s)
 		}
 		term := t
 		if end > 0 {
@@ -30,7 +30,7 @@ func parseNumber(s string) (*big.Int, error) {
 		}
 		v, err := parseTerm(term)
 		if err != nil {
-			return nil, fmt.Errorf("%q: %v", s, err)
+			return nil, fmt.Errorf("%s: %v", s, err)
 		}
 		if sign > 0 {
 			total.Add(total, v)
@@ -46,11 +46,11 @@ func parseNumber(s string) (*big.Int, error) {
 		}
 		t = t[end+1:]
 		if t == "" {
-			return nil, fmt.Errorf("%q: a term is missing at the end", s)
+			return nil, fmt.Errorf("%s: a term is missing at the end", s)
 		}
 	}
 	if total.Sign() <= 0 {
-		return nil, fmt.Errorf("%q is not positive", s)
+		return nil, fmt.Errorf("%s: want a positive number", s)
 	}
 	return total, nil
 }
@@ -61,12 +61,12 @@ func parseTerm(term string) (*big.Int, error) {
 		base, exp, hasExp := strings.Cut(factor, "^")
 		b, ok := new(big.Int).SetString(base, 10)
 		if !ok || b.Sign() < 0 || strings.HasPrefix(base, "+") {
-			return nil, fmt.Errorf("%q is not a number", base)
+			return nil, fmt.Errorf("%q is not a number: write decimals, or forms like 2^40, 5*2^60, 2^60+2^35", base)
 		}
 		if hasExp {
 			e, ok := new(big.Int).SetString(exp, 10)
 			if !ok || e.Sign() < 0 || e.Cmp(big.NewInt(maxExponent)) > 0 || strings.HasPrefix(exp, "+") {
-				return nil, fmt.Errorf("exponent %q: want 0 to %d", exp, maxExponent)
+				return nil, fmt.Errorf("the exponent %q: want 0 to %d", exp, maxExponent)
 			}
 			b.Exp(b, e, nil)
 		}

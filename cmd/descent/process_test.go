@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"fmt"
 	"math/rand/v2"
 	"os"
 	"os/exec"
@@ -122,12 +123,86 @@ func TestHugeClaimsFailFastInLittleMemory(t *testing.T) {
 	}
 }
 
+// started is a descent process running in the background.
+type started struct {
+	cmd            *exec.Cmd
+	stdout, stderr bytes.Buffer
+	done           chan struct{}
+	err            error
+}
+
+func start(t *testing.T, bin string, args ...string) *started {
+	t.Helper()
+	p := &started{cmd: exec.Command(bin, args...), done: make(chan struct{})}
+	p.cmd.Stdout, p.cmd.Stderr = &p.stdout, &p.stderr
+	require.NoError(t, p.cmd.Start())
+	go func() { p.err = p.cmd.Wait(); close(p.done) }()
+	t.Cleanup(func() { p.cmd.Process.Kill(); <-p.done })
+	return p
+}
+
+// until polls cond while the process runs, and returns whether it came
+// true before the process ended. It waits on the process, not on the
+// clock, so that it does not depend on the machine's speed; the deadline
+// only stops a test that would hang.
+func (p *started) until(t *testing.T, cond func() bool) bool {
+	t.Helper()
+	deadline := time.Now().Add(5 * time.Minute)
+	for !cond() {
+		select {
+		case <-p.done:
+			return cond()
+		case <-time.After(2 * time.Millisecond):
+		}
+		require.True(t, time.Now().Before(deadline), "the condition did not come true in 5 minutes")
+	}
+	return true
+}
+
+// stop sends sig and returns the exit status (-1 if the signal ended the
+// process).
+func (p *started) stop(t *testing.T, sig syscall.Signal) int {
+	t.Helper()
+	require.NoError(t, p.cmd.Process.Signal(sig))
+	<-p.done
+	var exit *exec.ExitError
+	if errors.As(p.err, &exit) {
+		return exit.ExitCode()
+	}
+	require.NoError(t, p.err)
+	return 0
+}
+
+// leftovers returns the temporary files of runs to target.
+func leftovers(t *testing.T, target string) []string {
+	t.Helper()
+	left, err := filepath.Glob(filepath.Join(filepath.Dir(target), "."+filepath.Base(target)+".tmp-*"))
+	require.NoError(t, err)
+	return left
+}
+
+// bigLeftover reports whether a temporary file of target holds at least
+// 1 MiB: the run is well under way.
+func bigLeftover(t *testing.T, target string) func() bool {
+	return func() bool {
+		for _, p := range leftovers(t, target) {
+			if fi, err := os.Stat(p); err == nil && fi.Size() >= 1<<20 {
+				return true
+			}
+		}
+		return false
+	}
+}
+
 func TestKilledEmitLeavesNoCertificate(t *testing.T) {
 	bin := buildBinary(t)
 	dir := t.TempDir()
 	target := filepath.Join(dir, "sieve.dcert")
+	require.Equal(t, exitOK, runBinary(t, bin, nil, "emit", "sieve", "-k", "34", "-o", filepath.Join(dir, "whole.dcert")).code)
+	whole, err := os.ReadFile(filepath.Join(dir, "whole.dcert"))
+	require.NoError(t, err)
 	rng := rand.New(rand.NewPCG(9, 9))
-	finished := 0
+	finished, killed := 0, 0
 	for i := range 12 {
 		cmd := exec.Command(bin, "emit", "sieve", "-k", "34", "-o", target)
 		require.NoError(t, cmd.Start())
@@ -141,51 +216,161 @@ func TestKilledEmitLeavesNoCertificate(t *testing.T) {
 			require.NoError(t, os.Remove(target))
 			continue
 		}
+		killed++
 		_, statErr := os.Stat(target)
 		require.True(t, os.IsNotExist(statErr), "run %d, killed: a file is at the target path", i)
-	}
-	require.Less(t, finished, 12, "every run finished before its kill: the test killed nothing")
-	// What the kills leave behind are temporary files. None passes a
-	// check, unless the kill fell in the last instant between the final
-	// write and the rename: then it is the whole certificate, byte for byte.
-	left, err := filepath.Glob(filepath.Join(dir, ".sieve.dcert.partial-*"))
-	require.NoError(t, err)
-	require.NotEmpty(t, left, "no kill left a temporary file to check")
-	require.Equal(t, exitOK, runBinary(t, bin, nil, "emit", "sieve", "-k", "34", "-o", target).code)
-	whole, err := os.ReadFile(target)
-	require.NoError(t, err)
-	for _, p := range left {
-		r := runBinary(t, bin, nil, "check", p)
-		if r.code == exitOK {
-			b, err := os.ReadFile(p)
-			require.NoError(t, err)
-			require.True(t, bytes.Equal(whole, b), "the leftover %s passes a check but is not the certificate", p)
-			continue
+		// What a kill leaves is a temporary file, the only one: each run
+		// removes those of the runs before it. It passes no check, unless
+		// the kill fell in the last instant between the final write and
+		// the rename: then it is the whole certificate, byte for byte.
+		left := leftovers(t, target)
+		require.LessOrEqual(t, len(left), 1, "run %d: the temporary files of earlier runs are still there", i)
+		for _, p := range left {
+			r := runBinary(t, bin, nil, "check", p)
+			if r.code == exitOK {
+				b, err := os.ReadFile(p)
+				require.NoError(t, err)
+				require.True(t, bytes.Equal(whole, b), "the leftover %s passes a check but is not the certificate", p)
+				continue
+			}
+			require.Regexp(t, "not a descent certificate|file ends inside the preamble", r.stdout, "the leftover %s", p)
 		}
-		require.Contains(t, r.stdout, "not a descent certificate", "the leftover %s", p)
+	}
+	require.NotZero(t, killed, "every run finished before its kill: the test killed nothing")
+}
+
+func TestKilledEmitIsCleanedUpByTheNextRun(t *testing.T) {
+	bin := buildBinary(t)
+	dir := t.TempDir()
+	target := filepath.Join(dir, "sieve.dcert")
+	// -workers 1 keeps the run long enough to be seen at work.
+	first := start(t, bin, "emit", "sieve", "-k", "38", "-workers", "1", "-o", target)
+	require.True(t, first.until(t, bigLeftover(t, target)), "the run ended before it had written 1 MiB: %s", first.stderr.String())
+
+	// While it runs, another run to the same file is refused.
+	r := runBinary(t, bin, nil, "emit", "sieve", "-k", "8", "-o", target)
+	require.Equal(t, exitUsage, r.code, r.stderr)
+	require.Equal(t, "descent: emit sieve: another descent run is writing "+target+" now\nhint: wait for it to finish, or give another -o\n", r.stderr)
+	require.Len(t, leftovers(t, target), 1, "the refused run touched the running one's file")
+
+	require.Equal(t, -1, first.stop(t, syscall.SIGKILL))
+	left := leftovers(t, target)
+	require.Len(t, left, 1, "a killed run leaves its temporary file")
+	fi, err := os.Stat(left[0])
+	require.NoError(t, err)
+
+	// The next run to the same file, with any arguments, removes it and
+	// says so.
+	r = runBinary(t, bin, nil, "emit", "sieve", "-k", "8", "-o", target)
+	require.Equal(t, exitOK, r.code, r.stderr)
+	require.Equal(t, fmt.Sprintf("descent: emit sieve: removed %s (%s), left by an earlier run to %s that did not finish\n", left[0], byteWords(fi.Size()), target), r.stderr)
+	require.Empty(t, leftovers(t, target))
+	require.Equal(t, exitOK, runBinary(t, bin, nil, "check", target).code)
+}
+
+func TestSignalsStopAnEmitAndSetTheExitStatus(t *testing.T) {
+	bin := buildBinary(t)
+	dir := t.TempDir()
+	target := filepath.Join(dir, "sieve.dcert")
+	for _, c := range []struct {
+		sig    syscall.Signal
+		status int
+		words  string
+	}{
+		{syscall.SIGINT, 130, "interrupted (SIGINT)"},
+		{syscall.SIGTERM, 143, "terminated (SIGTERM)"},
+	} {
+		p := start(t, bin, "emit", "sieve", "-k", "38", "-workers", "1", "-o", target)
+		require.True(t, p.until(t, bigLeftover(t, target)), "the run ended before it had written 1 MiB")
+		require.Equal(t, c.status, p.stop(t, c.sig), "%v: %s", c.sig, p.stderr.String())
+		require.Equal(t, "descent: emit sieve: "+c.words+"; nothing was written to "+target+"\n", p.stderr.String())
+		require.Empty(t, p.stdout.String())
+		require.Empty(t, leftovers(t, target), "%v: the temporary file is left", c.sig)
+		_, err := os.Stat(target)
+		require.True(t, os.IsNotExist(err), "%v: a file is at the target path", c.sig)
 	}
 }
 
-func TestKilledRangeLeavesAJournalThatIsNoCertificate(t *testing.T) {
-	bin := buildBinary(t)
+// rangeArgs builds the binary and a k = 16 sieve, and returns the
+// arguments of a range run of 256 blocks on one worker to target.
+func rangeArgs(t *testing.T) (bin, sieve, target string, args []string) {
+	bin = buildBinary(t)
 	dir := t.TempDir()
-	sieve := filepath.Join(dir, "s.dcert")
-	require.Equal(t, exitOK, runBinary(t, bin, nil, "emit", "sieve", "-k", "20", "-o", sieve).code)
-	target := filepath.Join(dir, "r.dcert")
-	cmd := exec.Command(bin, "emit", "range", "-sieve", sieve, "-from", "2^40", "-to", "2^40+2^30", "-block", "22", "-o", target)
-	require.NoError(t, cmd.Start())
-	time.Sleep(700 * time.Millisecond)
-	require.NoError(t, cmd.Process.Signal(syscall.SIGKILL))
-	require.Error(t, cmd.Wait(), "the range finished within 0.7 s: nothing was killed")
+	sieve = filepath.Join(dir, "s.dcert")
+	require.Equal(t, exitOK, runBinary(t, bin, nil, "emit", "sieve", "-k", "16", "-o", sieve).code)
+	target = filepath.Join(dir, "r.dcert")
+	return bin, sieve, target, []string{"emit", "range", "-sieve", sieve, "-from", "2^40", "-to", "2^40+2^26", "-block", "18", "-workers", "1", "-o", target}
+}
+
+func TestInterruptedRangeKeepsItsJournal(t *testing.T) {
+	bin, sieve, target, args := rangeArgs(t)
+	p := start(t, bin, args...)
+	journal := target + ".partial"
+	blocks := func() bool { // the journal holds two blocks
+		b, err := os.ReadFile(journal)
+		return err == nil && journalBlocks(b) >= 2
+	}
+	require.True(t, p.until(t, blocks), "the range ended before two blocks were journaled")
+	require.Equal(t, 130, p.stop(t, syscall.SIGINT), p.stderr.String())
+	require.Regexp(t, `^descent: emit range: interrupted \(SIGINT\); nothing was written to \S+r\.dcert\nhint: \S+r\.dcert\.partial keeps the \d+ completed blocks: the same command resumes from them\n$`, p.stderr.String())
+	require.Empty(t, leftovers(t, target))
+
+	// A run with other arguments is refused, and told whose journal it is.
+	other := append(append([]string{}, args[:8]...), "-block", "19", "-o", target)
+	r := runBinary(t, bin, nil, other...)
+	require.Equal(t, exitUsage, r.code, r.stderr)
+	require.Regexp(t, `^descent: emit range: \S+r\.dcert\.partial holds \d+ completed blocks of an interrupted run with other parameters \(map 3n\+1, from 1099511627776 to 1099578736640, blocks of 2\^18, cap 100000, 0 predecessor rules, sieve root [0-9a-f]{64}\)\nhint: run that command again to resume it, or remove \S+r\.dcert\.partial \(or give another -o\) to start this one\n$`, r.stderr)
+
+	// The same arguments resume.
+	r = runBinary(t, bin, nil, args...)
+	require.Equal(t, exitOK, r.code, r.stderr)
+	require.Regexp(t, `^descent: emit range: resuming after \d+ completed blocks from \S+r\.dcert\.partial\n$`, r.stderr)
+	require.Equal(t, exitOK, runBinary(t, bin, nil, "check", "-sieve", sieve, target).code)
+	_, err := os.Stat(journal)
+	require.True(t, os.IsNotExist(err), "the journal is left after the certificate was written")
+}
+
+// journalBlocks counts the whole block records of a journal's bytes
+// (emit/journal.go: magic, digest, words, then length-prefixed records).
+func journalBlocks(b []byte) int {
+	pos := 16 + 32
+	if len(b) < pos+4 {
+		return 0
+	}
+	pos += 4 + int(binary.BigEndian.Uint32(b[pos:]))
+	n := 0
+	for pos+4 <= len(b) {
+		l := int(binary.BigEndian.Uint32(b[pos:]))
+		if pos+4+l > len(b) {
+			break
+		}
+		pos += 4 + l
+		n++
+	}
+	return n
+}
+
+func TestKilledRangeLeavesAJournalThatIsNoCertificate(t *testing.T) {
+	bin, sieve, target, args := rangeArgs(t)
+	p := start(t, bin, args...)
+	require.True(t, p.until(t, func() bool {
+		b, err := os.ReadFile(target + ".partial")
+		return err == nil && journalBlocks(b) >= 1
+	}), "the range ended before a block was journaled")
+	require.Equal(t, -1, p.stop(t, syscall.SIGKILL))
 	_, err := os.Stat(target)
 	require.True(t, os.IsNotExist(err), "a file is at the target path")
 	r := runBinary(t, bin, nil, "check", "-sieve", sieve, target+".partial")
 	require.Equal(t, exitUsage, r.code, "the journal: %s", r.stdout)
 	require.Contains(t, r.stdout, "not a descent certificate")
-	// The next run resumes from the journal.
-	r = runBinary(t, bin, nil, "emit", "range", "-sieve", sieve, "-from", "2^40", "-to", "2^40+2^30", "-block", "22", "-o", target)
+	// The next run removes the killed one's temporary file and resumes
+	// from the journal.
+	require.Len(t, leftovers(t, target), 1)
+	r = runBinary(t, bin, nil, args...)
 	require.Equal(t, exitOK, r.code, r.stderr)
+	require.Contains(t, r.stderr, "left by an earlier run to "+target+" that did not finish")
 	require.Contains(t, r.stderr, "resuming after")
+	require.Empty(t, leftovers(t, target))
 	require.Equal(t, exitOK, runBinary(t, bin, nil, "check", "-sieve", sieve, target).code)
 }
 
@@ -230,8 +415,8 @@ func TestDeterministicAcrossGOMAXPROCS(t *testing.T) {
 	for _, procs := range []string{"1", "2", "8", "2"} {
 		s := filepath.Join(dir, "s"+procs+".dcert")
 		r := filepath.Join(dir, "r"+procs+".dcert")
-		require.Equal(t, exitOK, runBinary(t, bin, []string{"GOMAXPROCS=" + procs}, "emit", "sieve", "-k", "24", "-o", s).code)
-		require.Equal(t, exitOK, runBinary(t, bin, []string{"GOMAXPROCS=" + procs}, "emit", "range", "-sieve", s, "-from", "2^50", "-to", "2^50+2^26", "-o", r).code)
+		require.Equal(t, exitOK, runBinary(t, bin, []string{"GOMAXPROCS=" + procs}, "emit", "sieve", "-k", "24", "-replace", "-o", s).code)
+		require.Equal(t, exitOK, runBinary(t, bin, []string{"GOMAXPROCS=" + procs}, "emit", "range", "-sieve", s, "-from", "2^50", "-to", "2^50+2^26", "-replace", "-o", r).code)
 		for kind, p := range map[string]string{"sieve": s, "range": r} {
 			b, err := os.ReadFile(p)
 			require.NoError(t, err)

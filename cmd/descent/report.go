@@ -2,13 +2,13 @@ package main
 
 import (
 	"bytes"
+	"context"
 	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
 	"math/big"
 	"os"
-	"path/filepath"
 	"sort"
 	"strconv"
 
@@ -24,13 +24,14 @@ import (
 // checker's reports, in the claim words of show and check, and from the
 // block records of a checked range, read with cert's decoder once they
 // are bound to the checked root.
-func (c *cli) report(args []string) int {
-	fs := c.flags("report", "report [-sieve FILE] [-sample N [-seed S]] [-workers N] -o FILE CERT...")
+func (c *cli) report(ctx context.Context, args []string) int {
+	fs := c.flags("report")
 	sieve := fs.String("sieve", "", "the sieve certificate `FILE` the range certificates rest on")
 	out := fs.String("o", "", "write the HTML page to `FILE`")
 	sampleN := fs.Int("sample", 0, "audit range certificates: re-derive only `N` blocks of each, drawn from the root and -seed")
 	seed := fs.String("seed", "", "the reader's own `seed` for drawing the audited blocks")
 	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
+	replace := fs.Bool("replace", false, "replace `FILE` if it exists")
 	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
@@ -51,12 +52,14 @@ func (c *cli) report(args []string) int {
 		c.errorf("report: -seed without -sample: the seed only draws the blocks of an audit")
 		return exitUsage
 	}
-	inputs := append([]string{}, fs.Args()...)
-	if *sieve != "" {
-		inputs = append(inputs, *sieve)
+	var inputs []input
+	for _, path := range fs.Args() {
+		inputs = append(inputs, input{"a certificate reported on", path})
 	}
-	if err := outputNotInput(*out, inputs); err != nil {
-		c.errorf("report: %v", err)
+	if *sieve != "" {
+		inputs = append(inputs, input{"the -sieve file", *sieve})
+	}
+	if !c.outputOK("report", *out, *replace, inputs) {
 		return exitUsage
 	}
 
@@ -79,14 +82,18 @@ func (c *cli) report(args []string) int {
 		page.Sections = append(page.Sections, reportSection(rep, *sieve))
 	}
 
-	f, err := createAtomic(*out)
-	if err != nil {
-		c.errorf("report: %v", err)
+	var html bytes.Buffer
+	if err := report.Write(&html, page); err != nil {
+		c.errorf("report: %s: %v", *out, err)
 		return exitUsage
 	}
-	if err := report.Write(f, page); err != nil {
+	f, ok := c.createOutput(ctx, "report", *out, *replace, inputs)
+	if !ok {
+		return exitUsage
+	}
+	if _, err := f.WriteAt(html.Bytes(), 0); err != nil {
 		f.abort()
-		c.errorf("report: %s: %v", *out, err)
+		c.errorf("report: %v", err)
 		return exitUsage
 	}
 	if err := f.commit(); err != nil {
@@ -98,27 +105,6 @@ func (c *cli) report(args []string) int {
 	}
 	fmt.Fprintf(c.stdout, "%s: %s, %d failed\n", *out, count(len(page.Sections), "certificate", "certificates"), len(failed))
 	return status
-}
-
-// outputNotInput refuses an output path that names one of the inputs or a
-// directory: the page must never replace what it reports on.
-func outputNotInput(out string, inputs []string) error {
-	oi, err := os.Stat(out)
-	if err == nil && oi.IsDir() {
-		return fmt.Errorf("-o %s is a directory", out)
-	}
-	for _, in := range inputs {
-		if filepath.Clean(in) == filepath.Clean(out) {
-			return fmt.Errorf("-o %s names an input; write the page elsewhere", out)
-		}
-		if err != nil {
-			continue
-		}
-		if ii, err := os.Stat(in); err == nil && os.SameFile(oi, ii) {
-			return fmt.Errorf("-o %s is the input %s; write the page elsewhere", out, in)
-		}
-	}
-	return nil
 }
 
 // reportSection puts one checker report into the page's words.

@@ -16,7 +16,7 @@ import (
 )
 
 func (c *cli) show(args []string) int {
-	fs := c.flags("show", "show [-json] FILE")
+	fs := c.flags("show")
 	asJSON := fs.Bool("json", false, "write the claim as JSON")
 	if code, stop := c.parse(fs, args); stop {
 		return code

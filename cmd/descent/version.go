@@ -10,7 +10,7 @@ import (
 // the program was built with: the same build information every
 // 'check -json' report carries as "checker".
 func (c *cli) version(args []string) int {
-	fs := c.flags("version", "version [-json]")
+	fs := c.flags("version")
 	asJSON := fs.Bool("json", false, "write the build information as JSON")
 	if code, stop := c.parse(fs, args); stop {
 		return code
