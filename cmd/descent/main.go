@@ -34,12 +34,21 @@ const usage = `usage:
   descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
   descent check -part P -root HEX [-sieve FILE] FILE
   descent show [-json] FILE
+  descent check -receipt OUT -sign NAME.key [check flags] FILE
+  descent archive add [-sieve FILE] DIR FILE...
+  descent archive verify [-sample N] [-reindex] DIR
+  descent archive find [-json] [-map M] [-kind K] [-covers N] DIR
+  descent key new [-name NAME] -o PATH
+  descent receipt verify -key NAME.pub RECEIPT [FILE]
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
 emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
 merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
+archive     file certificates under their roots, re-check them, find them
+key         make a key pair that signs check receipts (check -receipt OUT -sign NAME.key)
+receipt     verify a signed check receipt
 
 Run 'descent COMMAND -h' for the flags of a command.
 `
@@ -73,6 +82,12 @@ func (c *cli) run(ctx context.Context, args []string) int {
 		return c.merge(args[1:])
 	case "show":
 		return c.show(args[1:])
+	case "archive":
+		return c.archive(args[1:])
+	case "key":
+		return c.key(args[1:])
+	case "receipt":
+		return c.receipt(args[1:])
 	case "help", "-h", "-help", "--help":
 		fmt.Fprint(c.stdout, usage)
 		return exitOK
