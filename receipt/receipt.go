@@ -42,19 +42,24 @@
 //
 // # Example
 //
+// The receipt of a full check of testdata/sieve-3n+1-k10.dcert, signed
+// with the example key alice+ac9ab061+ATmSJIbpvQPLRBQJtiGgNwqu3yIEqdlYHtpVNEOi4hMq,
+// whose secret half is the 32 bytes "descent receipt example key 0001"
+// (for this example only; a test signs it again and compares):
+//
 //	descent check receipt 1
-//	root 3c0e0a9d6f5dfe1f0a58b1a8ad2c5b4bb5a84c1e8f6a4f6f0a0e2b1c9d8e7f60
+//	root 1f1e516934439977e0f14c8ee36d2fbe7bd9a52e1fc3f26e19d9c50dd6acc80f
 //	kind sieve
 //	map 3n+1
 //	k 10
 //	j 10
-//	claim 3n+1: 64 of the 2^10 residues survive 10 steps; ...
-//	checker descent v0.0.0-20261201120000-8320ebb9c1d2 rev 8320ebb9c1d2...
+//	claim 3n+1: 64 of the 2^10 residues survive 10 steps; the rest lie in 27 closing classes; 1 exception (n = 1 lies on a cycle, as its smallest member)
+//	checker descent v1.2.0 rev 8320ebb9c1d2e3f4a5b6c7d8e9f0a1b2c3d4e5f6
 //	mode full
 //	result valid
 //	time 2026-12-01T12:00:00Z
 //
-//	— alice Zb7Qm1...
+//	— alice rJqwYQIhYjME7X1eQsfhbYyeCzKGft50vi49+pbVtpV580Cfj+T4O1TPtr1udGmt5BtZZmwKitaD1ub7NABiHkfN/Qo=
 //
 // The signature lines follow a blank line, as the note format has them:
 // an em dash, the key's name, and the base64 of the key's 32-bit hash and

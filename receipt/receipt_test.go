@@ -7,6 +7,7 @@ import (
 	"encoding/base64"
 	"encoding/binary"
 	"fmt"
+	"os"
 	"runtime/debug"
 	"strings"
 	"testing"
@@ -53,14 +54,38 @@ func TestReceiptTextRoundTrip(t *testing.T) {
 	require.Contains(t, text, "\nmode shard 3/16, audit 2 of 256 blocks, seed \"0f0e\"\n")
 }
 
-// The example of the package documentation, line for line.
+// The example of the package documentation, signed again with its key
+// and compared line for line; the claim is check's for that certificate.
 func TestReceiptDocExample(t *testing.T) {
-	r := examples()["sieve"]
-	text, err := r.Text()
+	src, err := os.ReadFile("receipt.go")
 	require.NoError(t, err)
-	require.Equal(t, "descent check receipt 1\nroot "+strings.Repeat("ab", 32)+"\nkind sieve\nmap 3n+1\nk 10\nj 10\n"+
-		"claim 3n+1: 64 of the 2^10 residues survive 10 steps\nchecker descent v1.2.3 rev 0123abcd\nmode full\nresult valid\n"+
-		"time 2026-12-01T12:00:00Z\n", text)
+	_, after, ok := strings.Cut(string(src), "(for this example only; a test signs it again and compares):\n//\n")
+	require.True(t, ok)
+	block, _, ok := strings.Cut(after, "\n//\n// The signature lines follow")
+	require.True(t, ok)
+	var doc strings.Builder
+	for _, line := range strings.Split(block, "\n") {
+		doc.WriteString(strings.TrimPrefix(strings.TrimPrefix(line, "//"), "\t") + "\n")
+	}
+
+	skey, vkey, err := NewKey(strings.NewReader("descent receipt example key 0001"), "alice")
+	require.NoError(t, err)
+	require.Equal(t, "alice+ac9ab061+ATmSJIbpvQPLRBQJtiGgNwqu3yIEqdlYHtpVNEOi4hMq", vkey)
+	r := &Receipt{Root: "1f1e516934439977e0f14c8ee36d2fbe7bd9a52e1fc3f26e19d9c50dd6acc80f", Kind: "sieve", Map: "3n+1", K: 10, J: 10,
+		Claim:   "3n+1: 64 of the 2^10 residues survive 10 steps; the rest lie in 27 closing classes; 1 exception (n = 1 lies on a cycle, as its smallest member)",
+		Checker: "descent v1.2.0 rev 8320ebb9c1d2e3f4a5b6c7d8e9f0a1b2c3d4e5f6", Result: Result{Valid: true}, Time: when}
+	msg, err := Sign(r, skey)
+	require.NoError(t, err)
+	require.Equal(t, doc.String(), string(msg))
+	got, err := Open([]byte(doc.String()), vkey)
+	require.NoError(t, err)
+	require.Equal(t, r, got)
+
+	readme, err := os.ReadFile("../README.md")
+	require.NoError(t, err)
+	indented := strings.ReplaceAll("    "+strings.TrimSuffix(doc.String(), "\n"), "\n", "\n    ")
+	indented = strings.ReplaceAll(indented, "\n    \n", "\n\n")
+	require.True(t, strings.Contains(string(readme), indented+"\n"), "the README shows the example:\n%s", indented)
 }
 
 // Every text that is not the canonical encoding of a receipt is refused.
