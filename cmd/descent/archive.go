@@ -217,7 +217,7 @@ func (c *cli) archiveVerify(args []string) int {
 	case sum.IndexErr != nil || sum.Count[archive.Unindexed]+sum.Count[archive.Misindexed] > 0:
 		c.indexHint(dir)
 	default:
-		fmt.Fprintf(c.stderr, "hint: restore the files named above from another copy ('descent archive add %s FILE' puts a good copy in place)\n", dir)
+		fmt.Fprintf(c.stderr, "hint: restore damaged or missing files from another copy ('descent archive add %s FILE' puts a good copy in place); move stray files out of %s\n", dir, filepath.Join(dir, "objects"))
 	}
 	return exitInvalid
 }

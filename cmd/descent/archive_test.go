@@ -56,7 +56,7 @@ func TestArchiveDamageAndLossThroughTheCLI(t *testing.T) {
 	require.Equal(t, exitInvalid, code)
 	require.Contains(t, errOut, "descent: archive verify: "+rangeObj+": damaged: invalid (hash): ")
 	require.Contains(t, errOut, "block 63 hashes to")
-	require.Contains(t, errOut, "hint: restore the files named above")
+	require.Contains(t, errOut, "hint: restore damaged or missing files from another copy")
 	require.Contains(t, out, dir+": 3 entries, 2 ok, 1 damaged\n")
 	// find still answers from the index; the file is not removed.
 	code, out, _ = runCLI("archive", "find", dir, "-covers", "1000")
