@@ -1,6 +1,7 @@
 package archive_test
 
 import (
+	"database/sql"
 	"errors"
 	"fmt"
 	"io"
@@ -374,4 +375,40 @@ func TestArchiveBoundKeysOrderAsNumbers(t *testing.T) {
 		want := n.Cmp(lo) >= 0 && n.Cmp(hi) < 0
 		require.Equal(t, want, len(es) == 1, "covers %s", n)
 	}
+}
+
+// An index that says something else of a good file is named, and
+// rebuilt; a user's sqlite3 session could have done this.
+func TestArchiveMisindexed(t *testing.T) {
+	dir := t.TempDir()
+	s := open(t, dir, true)
+	_, err := s.Add([]string{sieve12, range20})
+	require.NoError(t, err)
+	require.NoError(t, s.Close())
+
+	db, err := sql.Open("sqlite", filepath.Join(dir, "index.db"))
+	require.NoError(t, err)
+	_, err = db.Exec(`UPDATE certificates SET hi = '2097152', hi_key = printf('%04d:%s', 7, '2097152') WHERE kind = 'range'`)
+	require.NoError(t, err)
+	require.NoError(t, db.Close())
+
+	s = open(t, dir, false)
+	es, err := s.Find(archive.Query{Covers: "2000000"})
+	require.NoError(t, err)
+	require.Len(t, es, 1, "find answers from the index, as altered")
+	var msgs []string
+	sum, err := s.Verify(archive.VerifyOptions{Report: func(r archive.Result) {
+		if r.Status == archive.Misindexed {
+			msgs = append(msgs, r.Err.Error())
+		}
+	}})
+	require.NoError(t, err)
+	require.Equal(t, 1, sum.Count[archive.Misindexed])
+	require.Equal(t, []string{"the index says hi 2097152 where the file has 1048576"}, msgs)
+
+	_, err = s.Verify(archive.VerifyOptions{Reindex: true})
+	require.NoError(t, err)
+	es, err = s.Find(archive.Query{Covers: "2000000"})
+	require.NoError(t, err)
+	require.Empty(t, es)
 }
