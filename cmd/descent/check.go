@@ -19,6 +19,8 @@ func (c *cli) check(args []string) int {
 	seed := fs.String("seed", "", "the reader's own seed `S` for choosing the sampled blocks (needs -sample)")
 	shardFlag := fs.String("shard", "", "re-derive only share `i/N` of the records (or auto, auto/N, from the scheduler)")
 	part := fs.String("part", "", "check only record `P`, or share i/N, against -root through the Merkle audit path")
+	receiptOut := fs.String("receipt", "", "write a signed receipt of the check to `OUT` (one certificate; needs -sign)")
+	signKey := fs.String("sign", "", "sign the receipt with the secret key `NAME.key` ('descent key new')")
 	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
@@ -29,6 +31,10 @@ func (c *cli) check(args []string) int {
 	}
 	if !c.workersOK("check", *workers) {
 		return exitUsage
+	}
+	rc, code, stop := c.receiptSetup(*receiptOut, *signKey, fs.Args())
+	if stop {
+		return code
 	}
 	if !c.checkFlagsOK(fs) {
 		return exitUsage
@@ -72,6 +78,9 @@ func (c *cli) check(args []string) int {
 		}
 		status = max(status, exitStatus(rep))
 		words(rep)
+		if rc != nil {
+			status = max(status, rc.write(c, rep, *part))
+		}
 		if *asJSON {
 			if code := c.writeJSON(rep); code != exitOK {
 				return code

@@ -7,7 +7,13 @@
 //	descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
 //	descent check -part P -root HEX [-json] [-sieve FILE] FILE
 //	descent show [-json] FILE
+//	descent check -receipt OUT -sign NAME.key [check flags] FILE
 //	descent report [-sieve FILE] [-sample N [-seed S]] [-workers N] [-replace] -o FILE CERT...
+//	descent archive add [-sieve FILE] DIR FILE...
+//	descent archive verify [-sample N] [-reindex] DIR
+//	descent archive find [-json] [-map M] [-kind K] [-covers N] DIR
+//	descent key new [-name NAME] -o PATH
+//	descent receipt verify -key NAME.pub RECEIPT [FILE]
 //	descent version [-json]
 //	descent help [COMMAND]
 //
@@ -54,7 +60,13 @@ const usage = `usage:
   descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
   descent check -part P -root HEX [-json] [-sieve FILE] FILE
   descent show [-json] FILE
+  descent check -receipt OUT -sign NAME.key [check flags] FILE
   descent report [-sieve FILE] [-sample N [-seed S]] [-workers N] [-replace] -o FILE CERT...
+  descent archive add [-sieve FILE] DIR FILE...
+  descent archive verify [-sample N] [-reindex] DIR
+  descent archive find [-json] [-map M] [-kind K] [-covers N] DIR
+  descent key new [-name NAME] -o PATH
+  descent receipt verify -key NAME.pub RECEIPT [FILE]
   descent version [-json]
   descent help [COMMAND]
 
@@ -64,6 +76,9 @@ merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words
 report      check certificates and write one HTML page of their claims and plots
+archive     file certificates under their roots, re-check them, find them
+key         make a key pair that signs check receipts (check -receipt OUT -sign NAME.key)
+receipt     verify a signed check receipt
 version     print the module version, VCS revision and Go version
 
 Flags may come before or after the file names; -- ends the flags. -o never
@@ -150,6 +165,12 @@ func (c *cli) run(ctx context.Context, args []string) int {
 		return c.untilStopped(ctx, "report", func() int { return c.report(ctx, args[1:]) })
 	case "version":
 		return c.version(args[1:])
+	case "archive":
+		return c.archive(args[1:])
+	case "key":
+		return c.key(args[1:])
+	case "receipt":
+		return c.receipt(args[1:])
 	case "help", "-h", "-help", "--help":
 		if len(args) > 1 && args[0] == "help" {
 			return c.run(ctx, append(args[1:], "-h"))

@@ -9,6 +9,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"syscall"
 	"testing"
 
@@ -81,6 +82,17 @@ func TestScripts(t *testing.T) {
 					ts.Fatalf("usage: link OLD NEW")
 				}
 				ts.Check(os.Link(ts.MkAbs(args[0]), ts.MkAbs(args[1])))
+			},
+			// replace OLD NEW FILE: replace the first OLD in a file by NEW.
+			"replace": func(ts *testscript.TestScript, neg bool, args []string) {
+				if len(args) != 3 {
+					ts.Fatalf("usage: replace OLD NEW FILE")
+				}
+				b := ts.ReadFile(args[2])
+				if !strings.Contains(b, args[0]) {
+					ts.Fatalf("%s has no %q", args[2], args[0])
+				}
+				ts.Check(os.WriteFile(ts.MkAbs(args[2]), []byte(strings.Replace(b, args[0], args[1], 1)), 0o644))
 			},
 			// size FILE N: the file has N bytes.
 			"size": func(ts *testscript.TestScript, neg bool, args []string) {

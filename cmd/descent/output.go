@@ -35,7 +35,8 @@ type output struct {
 	ctx     context.Context
 	target  string
 	replace bool
-	head    []byte // the bytes held back from offset 0
+	perm    os.FileMode // the mode of the finished file; 0 means 0644
+	head    []byte      // the bytes held back from offset 0
 }
 
 // input is a file a command reads, which its output must not be.
@@ -292,7 +293,11 @@ func (f *output) finish() error {
 	if err := f.Sync(); err != nil {
 		return f.writeErr(err)
 	}
-	if err := f.Chmod(0o644); err != nil {
+	perm := f.perm
+	if perm == 0 {
+		perm = 0o644
+	}
+	if err := f.Chmod(perm); err != nil {
 		return f.writeErr(err)
 	}
 	// The file stays open, and so locked, until it has its name.
@@ -317,6 +322,33 @@ func (f *output) finish() error {
 	}
 	return nil
 }
+
+// writeWhole writes data, complete, to a new file at path, through the
+// same checks and temporary file as a certificate, and never replaces a
+// file: keys and receipts, which are small and written at once. perm is
+// the file's mode (a secret key's is 0600; the temporary file is 0600
+// from the start, so the key is never readable by others). It reports on
+// stderr and returns false when nothing was written.
+func (c *cli) writeWhole(cmd, path string, data []byte, perm os.FileMode, inputs []input) bool {
+	f, ok := c.createOutput(context.Background(), cmd, path, false, inputs)
+	if !ok {
+		return false
+	}
+	f.perm = perm
+	if _, err := f.WriteAt(data, 0); err != nil {
+		f.abort()
+		c.errorf("%s: %v", cmd, err)
+		return false
+	}
+	if err := f.commit(); err != nil {
+		c.errorf("%s: %v", cmd, err)
+		return false
+	}
+	return true
+}
+
+// removeWritten removes a file this run wrote and must take back.
+func removeWritten(path string) { os.Remove(path) }
 
 // abort removes the temporary file.
 func (f *output) abort() {
