@@ -105,7 +105,7 @@ func bits(b []byte) string {
 }
 
 func header() *cert.SieveHeader {
-	return &cert.SieveHeader{Map: cert.Map{A: 5, B: 1}, K: 9, J: 8, Cap: 50, Chunks: 3, Survivors: 40,
+	return &cert.SieveHeader{Map: cert.Map{A: 5, B: 1}, K: 9, J: 8, Cap: 50, Ceiling: 400, Chunks: 3, Survivors: 40,
 		ClosedAt: []uint64{1, 0, 1, 0, 2, 0, 5, 0},
 		Exceptions: []cert.Exception{
 			{N: big.NewInt(1), Fate: cert.Cycle, CycleMin: big.NewInt(1)},
@@ -138,6 +138,8 @@ func TestHeaderRejectsWhatIsNotCanonical(t *testing.T) {
 		{"descent beyond the cap", func(h *cert.SieveHeader) { h.Exceptions[1].Steps = 51 }},
 		{"cycle below n", func(h *cert.SieveHeader) { h.Exceptions[0].N = big.NewInt(2) }},
 		{"cap zero", func(h *cert.SieveHeader) { h.Cap = 0 }},
+		{"ceiling below 128 bits", func(h *cert.SieveHeader) { h.Ceiling = 127 }},
+		{"ceiling above 8192 bits", func(h *cert.SieveHeader) { h.Ceiling = 8193 }},
 		{"too many chunks", func(h *cert.SieveHeader) { h.Chunks = 18 }},
 	} {
 		h := header()
@@ -231,7 +233,7 @@ func seeds(f *testing.F) [][]byte {
 
 func summaryOf(s cert.Summary) check.DecodedSummary {
 	d := check.DecodedSummary{Sum: s.SigmaSum.String(), MaxSigma: s.MaxSigma, Records: []check.RecordReport{}, Cycles: []check.CycleReport{}}
-	for i, c := range []*big.Int{s.Sieve, s.Search, s.Small, s.Cycle, s.Undecided} {
+	for i, c := range []*big.Int{s.Sieve, s.Join, s.Search, s.Small, s.Cycle, s.Undecided} {
 		d.Counts[i] = c.String()
 	}
 	if s.MaxAt != nil {
@@ -255,7 +257,7 @@ func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decod
 	if err != nil {
 		return nil, err
 	}
-	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Offsets: rd.Offs,
+	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Ceiling: h.Ceiling, Offsets: rd.Offs,
 		Range: &check.DecodedRange{SieveRoot: h.SieveRoot, From: h.Lo.String(), To: h.Hi.String(), BlockExp: h.E,
 			Totals: summaryOf(h.Totals), SieveK: h.K, Count: h.Blocks, Rules: []string{}}}
 	for _, r := range h.Rules {
@@ -276,7 +278,7 @@ func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decod
 		if err != nil {
 			return nil, err
 		}
-		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		b, err := cert.ParseBlock(rec, rd.Offs[i], len(h.Rules))
 		if err != nil {
 			return nil, err
 		}
@@ -365,12 +367,16 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			recs = append(recs, out)
 		}
 	case cert.KindRange:
+		rh, err := cert.ParseRangeHeader(rd.Header)
+		if kind != rd.Kind {
+			sh, _ := cert.ParseShardHeader(rd.Header)
+			rh, err = cert.ParseRangeHeader(sh.WholeHeader)
+		}
+		if err != nil {
+			return nil, err
+		}
 		if header == nil {
-			h, err := cert.ParseRangeHeader(rd.Header)
-			if err != nil {
-				return nil, err
-			}
-			if header, err = h.Marshal(); err != nil {
+			if header, err = rh.Marshal(); err != nil {
 				return nil, err
 			}
 		}
@@ -382,7 +388,7 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			if err != nil {
 				return nil, err
 			}
-			blk, err := cert.ParseBlock(rec, 0)
+			blk, err := cert.ParseBlock(rec, 0, len(rh.Rules))
 			if err != nil {
 				return nil, err
 			}
@@ -449,7 +455,7 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 	if err != nil {
 		return nil, err
 	}
-	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
+	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling,
 		Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}, Shard: shard}
 	for _, e := range h.Exceptions {
 		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
@@ -509,7 +515,7 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 			if err != nil {
 				return nil, err
 			}
-			dc.Joined, dc.Delta = append([]bool{}, j.Joined...), append([]int64{}, j.Delta...)
+			dc.Joined, dc.Delta = append([]bool{}, j.Joined...), append([]uint64{}, j.Delta...)
 		}
 		d.Chunks = append(d.Chunks, dc)
 	}

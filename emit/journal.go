@@ -31,8 +31,8 @@ var errJournalParams = errors.New("the journal belongs to a run with other param
 
 func journalDigest(p RangeParams, sh *Shard) []byte {
 	d, _ := blake2b.New256(nil)
-	fmt.Fprintf(d, "descent range journal v1\x00%x\x00%v\x00%v\x00%v\x00%d\x00%d",
-		p.SieveRoot[:], p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap)
+	fmt.Fprintf(d, "descent range journal v2\x00%x\x00%v\x00%v\x00%v\x00%d\x00%d\x00%d",
+		p.SieveRoot[:], p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap, p.Ceiling)
 	if sh != nil {
 		fmt.Fprintf(d, "\x00shard %d/%d", sh.I, sh.N)
 	}
@@ -75,7 +75,7 @@ func OpenJournal(path string, p RangeParams, sh *Shard) (*Journal, [][]byte, err
 			break // cut short by a crash
 		}
 		rec := data[pos+4 : pos+4+n]
-		if _, err := cert.ParseBlock(rec, 0); err != nil {
+		if _, err := cert.ParseBlock(rec, 0, len(p.Rules)); err != nil {
 			break
 		}
 		recs = append(recs, rec)

@@ -155,7 +155,7 @@ func TestOtherMapsReportTheirCycles(t *testing.T) {
 	require.NoError(t, err)
 	rec, err := rd.Next()
 	require.NoError(t, err)
-	b, err := cert.ParseBlock(rec, 0)
+	b, err := cert.ParseBlock(rec, 0, 0)
 	require.NoError(t, err)
 	require.NotEmpty(t, b.UndecidedNs)
 	require.Equal(t, int64(7), b.UndecidedNs[0].Int64())

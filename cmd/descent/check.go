@@ -11,7 +11,7 @@ import (
 )
 
 func (c *cli) check(args []string) int {
-	fs := c.flags("check", "check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] FILE...")
+	fs := c.flags("check", "check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-budget STEPS] FILE...")
 	asJSON := fs.Bool("json", false, "write one JSON report per certificate, one per line")
 	rootHex := fs.String("root", "", "the published root `HEX` the certificate must have")
 	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
@@ -20,6 +20,7 @@ func (c *cli) check(args []string) int {
 	seed := fs.String("seed", "", "the reader's own `seed` for choosing the sampled blocks")
 	shardFlag := fs.String("shard", "", "re-derive only share `i/N` of the records (or auto, auto/N, from the scheduler)")
 	part := fs.String("part", "", "check only record `P`, or share i/N, against -root through the Merkle audit path")
+	budgetFlag := fs.String("budget", "", "the most work to allow, in `steps` of T (like 2^40; default 2^48): a certificate whose work bound exceeds it is reported beyond limits before that work")
 	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
@@ -36,6 +37,14 @@ func (c *cli) check(args []string) int {
 		return exitUsage
 	}
 	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
+	if *budgetFlag != "" {
+		b, err := parseNumber(*budgetFlag)
+		if err != nil || b.Sign() <= 0 || !b.IsUint64() {
+			c.errorf("check: -budget %q: want a positive number of steps below 2^64, like 2^40", *budgetFlag)
+			return exitUsage
+		}
+		o.Budget = b.Uint64()
+	}
 	if *shardFlag != "" {
 		sh, err := parseShard(*shardFlag, os.Getenv)
 		if err != nil {
@@ -59,11 +68,17 @@ func (c *cli) check(args []string) int {
 	status := exitOK
 	for _, path := range fs.Args() {
 		var rep *check.Report
+		update, finish := c.progress("records")
+		o.Progress = nil
+		if update != nil {
+			o.Progress = func(done, total int) { update(done, total, "") }
+		}
 		if *part != "" {
 			rep = check.Part(path, *part, *o.Root, o)
 		} else {
 			rep = check.File(path, o)
 		}
+		finish()
 		status = max(status, exitStatus(rep))
 		if *asJSON {
 			b, err := json.Marshal(rep)
@@ -134,6 +149,14 @@ func (c *cli) printReport(rep *check.Report) {
 			rep.File, rep.Kind, rep.Root, factsFromReport(rep).summary())
 		return
 	}
+	if errors.Is(rep.Err(), check.ErrUsage) {
+		// The reader's own mistake, not a fault of the certificate.
+		c.errorf("%s: %v", rep.File, rep.Err())
+		if rep.Hint != "" {
+			fmt.Fprintf(c.stderr, "hint: %s\n", rep.Hint)
+		}
+		return
+	}
 	verdict := "INVALID"
 	switch err := rep.Err(); {
 	case errors.Is(err, check.ErrLimits):
@@ -142,9 +165,7 @@ func (c *cli) printReport(rep *check.Report) {
 		verdict = "MALFORMED"
 	}
 	fmt.Fprintf(c.stdout, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
-	if rep.Reason == "unreadable" {
-		c.errorf("%s: %v", rep.File, rep.Err())
-	}
+
 	if w := rep.Where; w != nil && (w.Expected != "" || w.Found != "") {
 		fmt.Fprintf(c.stdout, "  claim      %s\n  expected   %s\n  found      %s\n", w.Claim, w.Expected, w.Found)
 	}

@@ -18,11 +18,12 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		c.errorf("emit: want a certificate kind: descent emit sieve ... or descent emit range ...")
 		return exitUsage
 	}
-	fs := c.flags("emit sieve", "emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-join] -o FILE")
+	fs := c.flags("emit sieve", "emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-ceiling W] [-join] -o FILE")
 	k := fs.Int("k", 24, "modulus exponent: the sieve covers the residues mod 2^`K` (1 to 64)")
 	j := fs.Int("j", 0, "step budget `J` <= K: classes may close at steps 1..J (default K)")
 	mapFlag := fs.String("map", "3n+1", "the `map` T: n/2 for even n, (an+b)/2 for odd n, written an+b or an-b")
 	capFlag := fs.Uint("cap", emit.DefaultCap, "step `cap` for deciding the fate of each exception")
+	ceiling := fs.Int("ceiling", 0, "ceiling `W` in bits: an exception whose orbit reaches 2^W before dropping is undecided (default max(128, 2L+64), L the bits of the exception bound)")
 	join := fs.Bool("join", false, "also claim joins: survivors whose path meets that of a smaller residue after k steps (needs j = k)")
 	workers := fs.Int("workers", 0, "parallel chunk encoders (default: all cores)")
 	shardFlag := fs.String("shard", "", "write only shard `i/N` (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
@@ -66,6 +67,10 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		c.errorf("emit sieve: -cap %d: want 1 to %d", *capFlag, cert.MaxCap)
 		return exitUsage
 	}
+	if *ceiling != 0 && (*ceiling < cert.MinCeiling || *ceiling > cert.MaxCeiling) {
+		c.errorf("emit sieve: -ceiling %d: want %d to %d bits", *ceiling, cert.MinCeiling, cert.MaxCeiling)
+		return exitUsage
+	}
 
 	f, err := createAtomic(*out)
 	if err != nil {
@@ -77,7 +82,7 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	if update != nil {
 		progress = func(done, total int) { update(done, total, "") }
 	}
-	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag), Joins: *join},
+	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag), Ceiling: *ceiling, Joins: *join},
 		emit.Options{Workers: *workers, Progress: progress, Shard: shard})
 	finish()
 	if err == nil {

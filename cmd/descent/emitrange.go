@@ -13,12 +13,13 @@ import (
 )
 
 func (c *cli) emitRange(ctx context.Context, args []string) int {
-	fs := c.flags("emit range", "emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-rules auto] -o FILE")
+	fs := c.flags("emit range", "emit range -sieve FILE -from LO -to HI [-block E] [-cap N] [-ceiling W] [-rules auto] -o FILE")
 	sievePath := fs.String("sieve", "", "the sieve certificate `FILE` the range rests on")
 	fromFlag := fs.String("from", "1", "the first number `LO`: decimal, or like 2^40, 5*2^60, 2^60+2^35")
 	toFlag := fs.String("to", "", "the bound `HI`: the range is [LO, HI)")
 	block := fs.Int("block", 0, "blocks of 2^`E` numbers (default: the sieve's k + 4)")
 	capFlag := fs.Uint("cap", emit.DefaultRangeCap, "step `cap`: a number not decided within it is reported undecided")
+	ceiling := fs.Int("ceiling", 0, "ceiling `W` in bits: a number whose orbit reaches 2^W before dropping is reported undecided (default max(128, 2L+64), L the bits of HI-1, raised to what the sieve's k needs)")
 	rulesFlag := fs.String("rules", "none", "predecessor rules: `auto` (justify the numbers of survivor classes that have a smaller predecessor, found for the map) or none")
 	workers := fs.Int("workers", 0, "parallel workers (default: all cores)")
 	shardFlag := fs.String("shard", "", "write only shard `i/N` of the blocks (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
@@ -38,6 +39,9 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 	case *capFlag > cert.MaxCap:
 		c.errorf("emit range: -cap %d: at most %d", *capFlag, cert.MaxCap)
 		return exitUsage
+	case *ceiling < 0 || *ceiling > cert.MaxCeiling:
+		c.errorf("emit range: -ceiling %d: want %d to %d bits", *ceiling, cert.MinCeiling, cert.MaxCeiling)
+		return exitUsage
 	case *rulesFlag != "auto" && *rulesFlag != "none":
 		c.errorf("emit range: -rules %q: want auto or none", *rulesFlag)
 		return exitUsage
@@ -51,20 +55,20 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 	if err == nil {
 		var hi *big.Int
 		if hi, err = parseNumber(*toFlag); err == nil {
-			return c.runRange(ctx, *sievePath, lo, hi, *block, uint32(*capFlag), *rulesFlag == "auto", *workers, shard, *out)
+			return c.runRange(ctx, *sievePath, lo, hi, *block, uint32(*capFlag), *ceiling, *rulesFlag == "auto", *workers, shard, *out)
 		}
 	}
 	c.errorf("emit range: %v", err)
 	return exitUsage
 }
 
-func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, block int, capSteps uint32, rules bool, workers int, shard *emit.Shard, out string) int {
+func (c *cli) runRange(ctx context.Context, sievePath string, lo, hi *big.Int, block int, capSteps uint32, ceiling int, rules bool, workers int, shard *emit.Shard, out string) int {
 	sh, root, err := readHeader(sievePath)
 	if err != nil {
 		c.errorf("emit range: %s: %v", sievePath, err)
 		return exitUsage
 	}
-	p := emit.RangeParams{Sieve: sh, SieveRoot: root, Lo: lo, Hi: hi, E: block, Cap: capSteps}
+	p := emit.RangeParams{Sieve: sh, SieveRoot: root, Lo: lo, Hi: hi, E: block, Cap: capSteps, Ceiling: ceiling}
 	if rules {
 		p.Rules = emit.AutoRules(sh.Map)
 	}

@@ -26,7 +26,7 @@ func num(x fmt.Stringer) check.Num { return check.Num(x.String()) }
 func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 	t := &h.Totals
 	f := rangeFacts{Map: h.Map.String(), Lo: h.Lo.String(), Hi: h.Hi.String(), SieveRoot: h.SieveRoot.String(), K: h.K, E: h.E, Cap: h.Cap,
-		Counts: check.RangeCounts{Sieve: num(t.Sieve), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
+		Counts: check.RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
 			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []check.RuleReport{}}}
 	for i, r := range h.Rules {
 		rr := check.RuleReport{Class: fmt.Sprintf("%d*q+%d", r.M, r.C), Predecessor: fmt.Sprintf("%d*q+%d", r.Mp, r.Cp), Steps: r.Steps, Numbers: "0"}

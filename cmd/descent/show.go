@@ -209,7 +209,7 @@ func readRange(path string) (*cert.RangeHeader, cert.Hash, []*big.Int, error) {
 		if cert.LeafHash(rec) != rd.Levels[0][i+1] {
 			return nil, cert.Hash{}, nil, fmt.Errorf("block %d does not match its hash: %w", i, cert.ErrHashMismatch)
 		}
-		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		b, err := cert.ParseBlock(rec, rd.Offs[i], len(h.Rules))
 		if err != nil {
 			return nil, cert.Hash{}, nil, err
 		}
