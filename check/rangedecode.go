@@ -35,7 +35,7 @@ const (
 
 type summary struct {
 	counts   [nCounts]*big.Int // sieve, join, search, small, cycle, undecided
-	sum      *big.Int    // of stopping times
+	sum      *big.Int          // of stopping times
 	maxSigma uint32
 	maxAt    *big.Int // nil if no number drops
 	records  []point

@@ -42,7 +42,7 @@ type joinKey struct {
 type joinFinder struct {
 	r       *rules
 	partner map[joinKey]uint64 // exhaustive: (s, T^k) -> smallest residue
-	maxD    int64             // pairLive follows |D| up to this; -1: never
+	maxD    int64              // pairLive follows |D| up to this; -1: never
 }
 
 func newJoinFinder(r *rules) (*joinFinder, error) {

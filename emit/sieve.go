@@ -19,9 +19,9 @@ import (
 // SieveParams names a sieve: the map, the modulus exponent k, the step
 // budget j <= k and the step cap for deciding the exceptions' fates.
 type SieveParams struct {
-	Map   cert.Map
-	K, J  int
-	Cap   uint32
+	Map  cert.Map
+	K, J int
+	Cap  uint32
 	// Ceiling is W, in bits: a fate stops, undecided, at an iterate of 2^W
 	// or more. 0 picks cert.DefaultCeiling of the exception bound's bit
 	// length.
