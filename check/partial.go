@@ -108,10 +108,14 @@ func (sv *sieve) checkSievePart(f *file, base, from, upto int, progress func(don
 		if fl := sv.leaf(f, i, rec); fl != nil {
 			return fl
 		}
+		g := base + i
 		if i < from || i >= upto {
+			// Outside the share: decoded, not judged (SPEC.md, section 3).
+			if fl := sv.grammar(g, rec, f.offsets[i]); fl != nil {
+				return fl
+			}
 			continue
 		}
-		g := base + i
 		if g == 0 {
 			_, fl = sv.checkChunk(0, rec, nil, f.offsets[i], nil, len(stubs))
 		} else {
