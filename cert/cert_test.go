@@ -565,3 +565,47 @@ func firstDiff(a, b []byte) int {
 	}
 	return min(len(a), len(b))
 }
+
+func TestJoinSectionVersion2(t *testing.T) {
+	// One code per partner: 0, 10 for r - 1, 11 and an unsigned varint of
+	// delta - 2 (SPEC.md, section 8).
+	j := cert.Joins{Joined: []bool{true, false, true, true}, Delta: []uint64{1, 2, 130}}
+	b := cert.AppendJoins(nil, j)
+	// Codes 10 0 11 11 are the bits 1001111, padded with one zero bit.
+	require.Equal(t, []byte{0b10011110, 0x00, 128, 1}, b, "codes, then varints 0 and 128")
+	got, err := cert.ParseJoins(b, 4, 0)
+	require.NoError(t, err)
+	require.Equal(t, j, got)
+
+	for name, c := range map[string]struct {
+		b    []byte
+		want string
+	}{
+		"a varint in a longer form than it needs": {[]byte{0b10011110, 0x80, 0x00, 128, 1}, "shortest-form"},
+		// codes 0 0 0 11 (bits 00011, padded), then 2^64 - 2
+		"a varint above 2^64 - 3":      {[]byte{0b00011000, 0xfe, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0x01}, "shortest-form"},
+		"a varint cut off":             {[]byte{0b00011000, 0x80}, "shortest-form"},
+		"a byte after the last varint": {[]byte{0b10011110, 0x00, 128, 1, 0}, "after the join deltas"},
+		"nonzero padding":              {[]byte{0b10011111, 0x00, 128, 1}, "padding"},
+	} {
+		_, err := cert.ParseJoins(c.b, 4, 0)
+		require.ErrorIs(t, err, cert.ErrMalformed, name)
+		require.Contains(t, err.Error(), c.want, name)
+	}
+	// The largest delta the format carries, 2^64 - 1, round-trips.
+	big := cert.Joins{Joined: []bool{true}, Delta: []uint64{1<<64 - 1}}
+	got, err = cert.ParseJoins(cert.AppendJoins(nil, big), 1, 0)
+	require.NoError(t, err)
+	require.Equal(t, big, got)
+}
+
+func TestVersion1IsAnOlderFormatToReemit(t *testing.T) {
+	b, err := os.ReadFile(filepath.Join("..", "testdata", "sieve-3n+1-k4.dcert"))
+	require.NoError(t, err)
+	b[8] = 1
+	_, err = cert.NewReader(bytes.NewReader(b))
+	require.ErrorIs(t, err, cert.ErrMalformed)
+	require.ErrorIs(t, err, cert.ErrVersion)
+	require.Contains(t, err.Error(), "older format")
+	require.Contains(t, err.Error(), "re-emit")
+}

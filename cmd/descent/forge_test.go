@@ -556,3 +556,44 @@ func TestHostileRangeBlockIsRefusedInBoundedMemory(t *testing.T) {
 	require.Equal(t, exitUsage, code)
 	require.Contains(t, rep["error"], "counts 1 numbers; it has 16777216")
 }
+
+func TestCodesThatBreakTheGrammarAreMalformed(t *testing.T) {
+	// A chunk whose codes run out before its leaves, or leave bits over,
+	// breaks the grammar of SPEC.md, section 2: malformed (exit 2), even
+	// with every hash recomputed, and even when a false claim comes first
+	// in the walk (a record is decoded before it is judged).
+	good := emitBytes(t, "-k", "10")
+	for name, edit := range map[string]func(ch *cert.Chunk){
+		"one bit short": func(ch *cert.Chunk) {
+			ch.NBits--
+			if pad := ch.NBits % 8; pad != 0 {
+				ch.Payload[len(ch.Payload)-1] &= 0xff << (8 - pad)
+			} else {
+				ch.Payload = ch.Payload[:len(ch.Payload)-1]
+			}
+		},
+		"one bit over": func(ch *cert.Chunk) {
+			ch.NBits++
+			if ch.NBits%8 == 1 {
+				ch.Payload = append(ch.Payload, 0)
+			}
+		},
+		"a false first code and one bit short": func(ch *cert.Chunk) {
+			ch.Payload[0] ^= 0x80
+			ch.NBits--
+			if pad := ch.NBits % 8; pad != 0 {
+				ch.Payload[len(ch.Payload)-1] &= 0xff << (8 - pad)
+			} else {
+				ch.Payload = ch.Payload[:len(ch.Payload)-1]
+			}
+		},
+	} {
+		c := open(t, good)
+		ch := &c.chunks[len(c.chunks)-1]
+		ch.Payload = append([]byte(nil), ch.Payload...)
+		edit(ch)
+		code, rep := checkJSON(t, c.seal(t))
+		require.Equal(t, exitUsage, code, "%s: %v", name, rep)
+		require.Equal(t, "malformed", rep["reason"], "%s: %v", name, rep["error"])
+	}
+}
