@@ -98,8 +98,11 @@ func TestEveryReasonHasOneClass(t *testing.T) {
 	spec, err := os.ReadFile(filepath.Join("..", "cert", "SPEC.md"))
 	require.NoError(t, err)
 	names := map[error]string{ErrMalformed: "malformed", ErrInvalid: "invalid", ErrLimits: "limits", ErrUsage: "usage"}
+	readme, err := os.ReadFile(filepath.Join("..", "README.md"))
+	require.NoError(t, err)
 	for _, r := range Reasons {
 		require.Contains(t, string(spec), "| `"+r.Code+"` | "+names[r.Class]+" |", r.Code)
+		require.Contains(t, string(readme), "`"+r.Code+"`", "README lists %s", r.Code)
 	}
 }
 
