@@ -17,6 +17,7 @@ type facts struct {
 	Map        string
 	K, J       int
 	Cap        uint32
+	Ceiling    int
 	Survivors  uint64 // all survivors, joined or not
 	Joins      bool   // a sieve with joins
 	Joined     uint64 // the survivors joined to smaller residues
@@ -36,7 +37,7 @@ type excFact struct {
 }
 
 func factsFromHeader(h *cert.SieveHeader) facts {
-	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined}
+	f := facts{Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined}
 	for t, n := range h.ClosedAt {
 		if n > 0 {
 			f.Closing = append(f.Closing, closing{Step: t + 1, Classes: n})
@@ -53,7 +54,7 @@ func factsFromHeader(h *cert.SieveHeader) facts {
 }
 
 func factsFromReport(r *check.Report) facts {
-	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap}
+	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap, Ceiling: r.Ceiling}
 	f.Survivors, _ = strconv.ParseUint(string(r.Survivors), 10, 64)
 	if r.Joined != "" {
 		f.Joins = true
@@ -85,7 +86,7 @@ func (f facts) closedClasses() uint64 {
 	return n
 }
 
-func (e excFact) fateText(cap uint32) string {
+func (e excFact) fateText(cap uint32, ceiling int) string {
 	switch e.Fate {
 	case "descends":
 		return fmt.Sprintf("descends below itself after %d steps", e.Steps)
@@ -95,13 +96,13 @@ func (e excFact) fateText(cap uint32) string {
 		}
 		return "reaches the cycle whose smallest member is " + e.CycleMin
 	}
-	return fmt.Sprintf("undecided: neither descends nor repeats within %d steps", cap)
+	return fmt.Sprintf("undecided: its orbit neither descends below it nor repeats within %d steps, or reaches 2^%d before it descends", cap, ceiling)
 }
 
 func (f facts) exceptionList() string {
 	var parts []string
 	for _, e := range f.Exceptions {
-		parts = append(parts, fmt.Sprintf("n = %s %s", e.N, e.fateText(f.Cap)))
+		parts = append(parts, fmt.Sprintf("n = %s %s", e.N, e.fateText(f.Cap, f.Ceiling)))
 	}
 	return strings.Join(parts, "; ")
 }

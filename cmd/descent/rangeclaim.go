@@ -15,6 +15,7 @@ type rangeFacts struct {
 	Map, Lo, Hi, SieveRoot string
 	K, E                   int
 	Cap                    uint32
+	Ceiling                int
 	Counts                 check.RangeCounts
 	Records                []check.RecordReport
 	Max                    *check.RecordReport
@@ -25,7 +26,7 @@ func num(x fmt.Stringer) check.Num { return check.Num(x.String()) }
 
 func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 	t := &h.Totals
-	f := rangeFacts{Map: h.Map.String(), Lo: h.Lo.String(), Hi: h.Hi.String(), SieveRoot: h.SieveRoot.String(), K: h.K, E: h.E, Cap: h.Cap,
+	f := rangeFacts{Map: h.Map.String(), Lo: h.Lo.String(), Hi: h.Hi.String(), SieveRoot: h.SieveRoot.String(), K: h.K, E: h.E, Cap: h.Cap, Ceiling: h.Ceiling,
 		Counts: check.RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
 			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []check.RuleReport{}}}
 	for i, r := range h.Rules {
@@ -48,7 +49,7 @@ func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 }
 
 func rangeFactsFromReport(r *check.Report) rangeFacts {
-	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap,
+	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap, Ceiling: r.Ceiling,
 		Records: r.Records, Max: r.MaxStoppingTime, Cycles: r.Cycles}
 	if r.Counts != nil {
 		f.Counts = *r.Counts
@@ -70,6 +71,9 @@ func (f rangeFacts) onlyOne() bool { return len(f.Cycles) == 1 && f.Cycles[0].Mi
 func (f rangeFacts) summary() string {
 	s := fmt.Sprintf("%s over [%s, %s): %s numbers justified by the sieve, %s by search, %s small ones directly",
 		f.Map, f.Lo, f.Hi, f.Counts.Sieve, f.Counts.Search, f.Counts.Small)
+	if f.Counts.Join != "" && f.Counts.Join != "0" {
+		s += fmt.Sprintf(", %s by joins of the sieve", f.Counts.Join)
+	}
 	if len(f.Counts.Rules) > 0 {
 		s += fmt.Sprintf(", %s by %s", f.ruleTotal(), plural(len(f.Counts.Rules), "predecessor rule", "predecessor rules"))
 	}
@@ -85,9 +89,16 @@ func (f rangeFacts) summary() string {
 
 // sentence is the claim fit to quote.
 func (f rangeFacts) sentence() string {
+	joins := f.Counts.Join != "" && f.Counts.Join != "0"
 	s := fmt.Sprintf("For T(n) = n/2 for even n, (%s)/2 for odd n, every n in [%s, %s) either drops below itself "+
 		"(T^i(n) < n for some i; its stopping time is the least such i) or reaches a cycle without dropping, "+
 		"or is listed as undecided within %d steps.", f.Map, f.Lo, f.Hi, f.Cap)
+	if joins {
+		s = fmt.Sprintf("For T(n) = n/2 for even n, (%s)/2 for odd n, every n in [%s, %s) either drops below itself "+
+			"(T^i(n) < n for some i; its stopping time is the least such i), or lies in a survivor class the sieve joins to "+
+			"a smaller one (so it meets a smaller number after %d steps), or reaches a cycle without dropping, "+
+			"or is listed as undecided within %d steps (or on reaching 2^%d).", f.Map, f.Lo, f.Hi, f.K, f.Cap, f.Ceiling)
+	}
 	if len(f.Cycles) > 0 {
 		s += fmt.Sprintf(" The numbers that do not drop reach the cycles whose smallest members are %s.", f.cycleList())
 	}
@@ -107,7 +118,7 @@ func (f rangeFacts) sentence() string {
 	except := ""
 	if f.Counts.Undecided != "0" {
 		except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit reaches one of them", f.Counts.Undecided)
-		if len(f.Counts.Rules) > 0 { // a rule rests n on a predecessor whose orbit passes through n
+		if len(f.Counts.Rules) > 0 || joins { // a rule or a join rests n on a number whose orbit meets n's
 			except = fmt.Sprintf(", except the %s undecided numbers and any number whose orbit meets the orbit of one of them", f.Counts.Undecided)
 		}
 	}

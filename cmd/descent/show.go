@@ -159,7 +159,7 @@ func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f fact
 		fmt.Fprintf(w, "  none\n")
 	}
 	for _, e := range f.Exceptions {
-		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap))
+		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap, f.Ceiling))
 	}
 	fmt.Fprintf(w, "\nThis is the claim as written in the file; 'descent check %s' re-derives it.\n", path)
 }
@@ -273,6 +273,7 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	fmt.Fprintf(tw, "  sieve\t%s (k = %d)\n", f.SieveRoot, f.K)
 	fmt.Fprintf(tw, "  blocks\t%d of 2^%d numbers\n", h.Blocks, f.E)
 	fmt.Fprintf(tw, "  step cap\t%d\n", f.Cap)
+	fmt.Fprintf(tw, "  ceiling\t2^%d (an orbit that reaches it before dropping is undecided)\n", h.Ceiling)
 	tw.Flush()
 	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
 	fmt.Fprintf(w, "\nWhat it does not prove\n%s\n", wrap(f.caveat(), 76, "  "))
@@ -280,6 +281,7 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', tabwriter.AlignRight)
 	for _, row := range [][2]string{
 		{"in a closing class of the sieve (stopping time = its closing step)", string(f.Counts.Sieve)},
+		{"in a survivor class joined to a smaller one (meet a smaller number after k steps)", string(f.Counts.Join)},
 		{"in a survivor class, searched until they drop", string(f.Counts.Search)},
 		{"small numbers, iterated directly", string(f.Counts.Small)},
 		{"reach a cycle without dropping", string(f.Counts.Cycle)},
