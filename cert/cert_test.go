@@ -105,7 +105,7 @@ func bits(b []byte) string {
 }
 
 func header() *cert.SieveHeader {
-	return &cert.SieveHeader{Map: cert.Map{A: 5, B: 1}, K: 9, J: 8, Cap: 50, Chunks: 3, Survivors: 40,
+	return &cert.SieveHeader{Map: cert.Map{A: 5, B: 1}, K: 9, J: 8, Cap: 50, Ceiling: 400, Chunks: 3, Survivors: 40,
 		ClosedAt: []uint64{1, 0, 1, 0, 2, 0, 5, 0},
 		Exceptions: []cert.Exception{
 			{N: big.NewInt(1), Fate: cert.Cycle, CycleMin: big.NewInt(1)},
@@ -138,6 +138,8 @@ func TestHeaderRejectsWhatIsNotCanonical(t *testing.T) {
 		{"descent beyond the cap", func(h *cert.SieveHeader) { h.Exceptions[1].Steps = 51 }},
 		{"cycle below n", func(h *cert.SieveHeader) { h.Exceptions[0].N = big.NewInt(2) }},
 		{"cap zero", func(h *cert.SieveHeader) { h.Cap = 0 }},
+		{"ceiling below 128 bits", func(h *cert.SieveHeader) { h.Ceiling = 127 }},
+		{"ceiling above 8192 bits", func(h *cert.SieveHeader) { h.Ceiling = 8193 }},
 		{"too many chunks", func(h *cert.SieveHeader) { h.Chunks = 18 }},
 	} {
 		h := header()
@@ -196,8 +198,8 @@ func TestWorkedExampleHexInSpec(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, file, dump)
 	// The hashes printed below the dump are those of the dump's header
-	// (81 bytes) and records (offsets 297, 312, 327), by the reference mth.
-	header, top, stub := dump[:81], dump[297:312], dump[312:327]
+	// (83 bytes) and records (offsets 299, 314, 329), by the reference mth.
+	header, top, stub := dump[:83], dump[299:314], dump[314:329]
 	leaf := func(b []byte) [32]byte { return mth([][]byte{b}) }
 	for label, h := range map[string][32]byte{
 		"leaf 0 (header)":     leaf(header),
@@ -231,7 +233,7 @@ func seeds(f *testing.F) [][]byte {
 
 func summaryOf(s cert.Summary) check.DecodedSummary {
 	d := check.DecodedSummary{Sum: s.SigmaSum.String(), MaxSigma: s.MaxSigma, Records: []check.RecordReport{}, Cycles: []check.CycleReport{}}
-	for i, c := range []*big.Int{s.Sieve, s.Search, s.Small, s.Cycle, s.Undecided} {
+	for i, c := range []*big.Int{s.Sieve, s.Join, s.Search, s.Small, s.Cycle, s.Undecided} {
 		d.Counts[i] = c.String()
 	}
 	if s.MaxAt != nil {
@@ -255,7 +257,7 @@ func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decod
 	if err != nil {
 		return nil, err
 	}
-	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Offsets: rd.Offs,
+	d := &check.Decoded{Header: header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, Cap: h.Cap, Ceiling: h.Ceiling, Offsets: rd.Offs,
 		Range: &check.DecodedRange{SieveRoot: h.SieveRoot, From: h.Lo.String(), To: h.Hi.String(), BlockExp: h.E,
 			Totals: summaryOf(h.Totals), SieveK: h.K, Count: h.Blocks, Rules: []string{}}}
 	for _, r := range h.Rules {
@@ -276,7 +278,7 @@ func decodeRangeWithCert(rd *cert.Reader, header []byte, base int) (*check.Decod
 		if err != nil {
 			return nil, err
 		}
-		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		b, err := cert.ParseBlock(rec, rd.Offs[i], len(h.Rules))
 		if err != nil {
 			return nil, err
 		}
@@ -365,12 +367,16 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			recs = append(recs, out)
 		}
 	case cert.KindRange:
+		rh, err := cert.ParseRangeHeader(rd.Header)
+		if kind != rd.Kind {
+			sh, _ := cert.ParseShardHeader(rd.Header)
+			rh, err = cert.ParseRangeHeader(sh.WholeHeader)
+		}
+		if err != nil {
+			return nil, err
+		}
 		if header == nil {
-			h, err := cert.ParseRangeHeader(rd.Header)
-			if err != nil {
-				return nil, err
-			}
-			if header, err = h.Marshal(); err != nil {
+			if header, err = rh.Marshal(); err != nil {
 				return nil, err
 			}
 		}
@@ -382,7 +388,7 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			if err != nil {
 				return nil, err
 			}
-			blk, err := cert.ParseBlock(rec, 0)
+			blk, err := cert.ParseBlock(rec, 0, len(rh.Rules))
 			if err != nil {
 				return nil, err
 			}
@@ -449,7 +455,7 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 	if err != nil {
 		return nil, err
 	}
-	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
+	d := &check.Decoded{Header: rd.Header, Records: rd.Layout.Records, Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling,
 		Survivors: h.Survivors, Joins: h.Joins, Joined: h.Joined, ClosedAt: h.ClosedAt, Offsets: rd.Offs, Exceptions: []check.ExceptionReport{}, Shard: shard}
 	for _, e := range h.Exceptions {
 		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
@@ -509,7 +515,7 @@ func decodeWithCert(b []byte) (*check.Decoded, error) {
 			if err != nil {
 				return nil, err
 			}
-			dc.Joined, dc.Delta = append([]bool{}, j.Joined...), append([]int64{}, j.Delta...)
+			dc.Joined, dc.Delta = append([]bool{}, j.Joined...), append([]uint64{}, j.Delta...)
 		}
 		d.Chunks = append(d.Chunks, dc)
 	}
@@ -558,4 +564,48 @@ func firstDiff(a, b []byte) int {
 		}
 	}
 	return min(len(a), len(b))
+}
+
+func TestJoinSectionVersion2(t *testing.T) {
+	// One code per partner: 0, 10 for r - 1, 11 and an unsigned varint of
+	// delta - 2 (SPEC.md, section 8).
+	j := cert.Joins{Joined: []bool{true, false, true, true}, Delta: []uint64{1, 2, 130}}
+	b := cert.AppendJoins(nil, j)
+	// Codes 10 0 11 11 are the bits 1001111, padded with one zero bit.
+	require.Equal(t, []byte{0b10011110, 0x00, 128, 1}, b, "codes, then varints 0 and 128")
+	got, err := cert.ParseJoins(b, 4, 0)
+	require.NoError(t, err)
+	require.Equal(t, j, got)
+
+	for name, c := range map[string]struct {
+		b    []byte
+		want string
+	}{
+		"a varint in a longer form than it needs": {[]byte{0b10011110, 0x80, 0x00, 128, 1}, "shortest-form"},
+		// codes 0 0 0 11 (bits 00011, padded), then 2^64 - 2
+		"a varint above 2^64 - 3":      {[]byte{0b00011000, 0xfe, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0x01}, "shortest-form"},
+		"a varint cut off":             {[]byte{0b00011000, 0x80}, "shortest-form"},
+		"a byte after the last varint": {[]byte{0b10011110, 0x00, 128, 1, 0}, "after the join deltas"},
+		"nonzero padding":              {[]byte{0b10011111, 0x00, 128, 1}, "padding"},
+	} {
+		_, err := cert.ParseJoins(c.b, 4, 0)
+		require.ErrorIs(t, err, cert.ErrMalformed, name)
+		require.Contains(t, err.Error(), c.want, name)
+	}
+	// The largest delta the format carries, 2^64 - 1, round-trips.
+	big := cert.Joins{Joined: []bool{true}, Delta: []uint64{1<<64 - 1}}
+	got, err = cert.ParseJoins(cert.AppendJoins(nil, big), 1, 0)
+	require.NoError(t, err)
+	require.Equal(t, big, got)
+}
+
+func TestVersion1IsAnOlderFormatToReemit(t *testing.T) {
+	b, err := os.ReadFile(filepath.Join("..", "testdata", "sieve-3n+1-k4.dcert"))
+	require.NoError(t, err)
+	b[8] = 1
+	_, err = cert.NewReader(bytes.NewReader(b))
+	require.ErrorIs(t, err, cert.ErrMalformed)
+	require.ErrorIs(t, err, cert.ErrVersion)
+	require.Contains(t, err.Error(), "older format")
+	require.Contains(t, err.Error(), "re-emit")
 }

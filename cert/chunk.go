@@ -137,17 +137,24 @@ func (c Chunk) Open() (int, error) {
 // whether it is joined, and if so Delta = r - r' for its partner r'.
 type Joins struct {
 	Joined []bool
-	Delta  []int64 // one per joined survivor, in order
+	Delta  []uint64 // one per joined survivor, in order, each at least 1
 }
 
 // The join codes, one per survivor, most significant bit first:
 //
 //	0    not joined
 //	10   joined to r - 1
-//	11   joined to r - delta, delta the next zigzag varint after the codes
+//	11   joined to r - delta, delta = 2 + the next varint after the codes
 //
 // The codes are padded with zero bits to a whole byte; the varints follow,
-// and a varint never holds delta = 1, which has its own code.
+// unsigned, shortest form, each at most MaxJoinVarint. Every partner has
+// exactly one encoding, and every encoding names a partner below r or
+// claims one below zero, which is false (a checker's reason "join"), not
+// malformed.
+
+// MaxJoinVarint is the largest varint value of a join delta, so that
+// delta = 2 + value fits in 64 bits.
+const MaxJoinVarint = 1<<64 - 3
 
 // MaxJoinSurvivors bounds the survivors of one chunk of a sieve with
 // joins, whose checker keeps them while it reads the join section.
@@ -172,15 +179,15 @@ func (w *JoinWriter) Keeps(n uint64) {
 	w.codes.WriteBits(0, uint(n))
 }
 
-// Join records a survivor joined to the residue delta below it.
-func (w *JoinWriter) Join(delta int64) {
+// Join records a survivor joined to the residue delta >= 1 below it.
+func (w *JoinWriter) Join(delta uint64) {
 	w.joined++
 	if delta == 1 {
 		w.codes.WriteBits(0b10, 2)
 		return
 	}
 	w.codes.WriteBits(0b11, 2)
-	w.deltas = binary.AppendVarint(w.deltas, delta)
+	w.deltas = binary.AppendUvarint(w.deltas, delta-2)
 }
 
 // Neighbours records n survivors, each joined to the residue just below.
@@ -220,9 +227,12 @@ func AppendJoins(b []byte, j Joins) []byte {
 // from rest, the bytes after the codes, which it must use exactly; base is
 // its file offset, for errors.
 func ParseJoins(rest []byte, survivors int, base int64) (Joins, error) {
-	j := Joins{Joined: []bool{}, Delta: []int64{}}
+	j := Joins{Joined: []bool{}, Delta: []uint64{}}
 	if survivors > MaxJoinSurvivors {
 		return j, formatErr(base, "a chunk of a sieve with joins holds %d survivors, more than %d", survivors, MaxJoinSurvivors)
+	}
+	if need := (survivors + 7) / 8; len(rest) < need {
+		return j, formatErr(base, "the join codes of %d survivors need at least %d bytes; the section has %d", survivors, need, len(rest))
 	}
 	r := bitReader{buf: rest, nbit: uint64(len(rest)) * 8}
 	var explicit []int // the places in Delta that a varint fills
@@ -251,14 +261,11 @@ func ParseJoins(rest []byte, survivors int, base int64) (Joins, error) {
 	}
 	rest, base = rest[nb:], base+int64(nb)
 	for _, at := range explicit {
-		d, n := binary.Varint(rest)
-		if n <= 0 || n != len(binary.AppendVarint(nil, d)) {
-			return j, formatErr(base, "a join delta is not a canonical varint")
+		v, n := binary.Uvarint(rest)
+		if n <= 0 || n != len(binary.AppendUvarint(nil, v)) || v > MaxJoinVarint {
+			return j, formatErr(base, "a join delta is not a shortest-form varint of at most %d", uint64(MaxJoinVarint))
 		}
-		if d == 1 {
-			return j, formatErr(base, "a join delta of 1 written as a varint; it has its own code")
-		}
-		j.Delta[at] = d
+		j.Delta[at] = v + 2
 		rest, base = rest[n:], base+int64(n)
 	}
 	if len(rest) != 0 {

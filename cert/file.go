@@ -12,7 +12,7 @@ import (
 // offsets, records.
 const (
 	Magic        = "descent\x00"
-	Version      = 1
+	Version      = 2
 	KindSieve    = 's'
 	KindJoins    = 'j' // a sieve whose survivors may be joined to smaller ones
 	PreambleSize = 18
@@ -36,6 +36,26 @@ type FormatError struct {
 
 func (e *FormatError) Error() string { return fmt.Sprintf("offset %d: %s", e.Offset, e.Reason) }
 func (e *FormatError) Unwrap() error { return ErrMalformed }
+
+// ErrVersion is wrapped by the error about a file of another format
+// version: malformed for this reader, but a file to re-emit, not a damaged
+// one.
+var ErrVersion = errors.New("another format version")
+
+// VersionError is a file of a format version this reader does not read.
+type VersionError struct{ Version byte }
+
+func (e *VersionError) Error() string {
+	if e.Version < Version {
+		return fmt.Sprintf("offset 8: format version %d is an older format that this program no longer reads; re-emit the certificate (this program reads version %d)", e.Version, Version)
+	}
+	return fmt.Sprintf("offset 8: unknown format version %d (this program reads version %d)", e.Version, Version)
+}
+
+// Is makes a VersionError both malformed and of another version.
+func (e *VersionError) Is(target error) bool { return target == ErrMalformed || target == ErrVersion }
+
+func versionErr(v byte) error { return &VersionError{Version: v} }
 
 func formatErr(off int64, format string, args ...any) error {
 	return &FormatError{Offset: off, Reason: fmt.Sprintf(format, args...)}
@@ -64,7 +84,7 @@ func parsePreamble(b []byte) (preamble, error) {
 		return p, formatErr(0, "not a descent certificate (magic %q)", b[:8])
 	}
 	if b[8] != Version {
-		return p, formatErr(8, "unknown format version %d (this program reads version %d)", b[8], Version)
+		return p, versionErr(b[8])
 	}
 	p.kind = b[9]
 	if p.kind != KindSieve && p.kind != KindJoins && p.kind != KindRange && p.kind != KindShard {

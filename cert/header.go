@@ -95,13 +95,32 @@ const (
 	MaxCap        = 1 << 24 // step cap for fates
 	MaxNatBytes   = 255     // length of one natural number
 	MaxK          = 64
+
+	// MinCeiling and MaxCeiling bound the ceiling W, in bits: following an
+	// orbit stops, undecided, at the first iterate of 2^W or more. Every
+	// value the fate rule and the search compute is thus below 2^W, so a
+	// step costs at most W/64 machine words; W >= 128 lets both sides keep
+	// the 128-bit arithmetic of their fast paths without a ceiling test.
+	MinCeiling = 128
+	MaxCeiling = 8192
 )
+
+// DefaultCeiling is the ceiling the writer states when none is given, for
+// a certificate whose largest number followed has L bits (a sieve: the
+// exception bound; a range: hi - 1): W = max(128, 2L + 64). Orbits of 3n+1
+// peak near n^2 (the path records, OEIS A006884 with their maxima A006885,
+// stay below n^2 * 2^4 as far as they are listed), so a 3n+1 orbit stops at
+// the ceiling only if it climbs 2^60 times higher than any known one; maps
+// whose orbits diverge (5n+1) stop after a few hundred steps instead of
+// running to the step cap on ever larger numbers.
+func DefaultCeiling(L int) int { return max(MinCeiling, 2*L+64) }
 
 // SieveHeader is the kind 's' header: the claim of a sieve certificate.
 type SieveHeader struct {
 	Map       Map
 	K, J      int
 	Cap       uint32
+	Ceiling   int    // W: an iterate of 2^W or more stops a fate, undecided
 	Chunks    int    // number of chunk records, the top chunk included
 	Survivors uint64 // residues mod 2^K that survive J steps
 	// Joins: a sieve with joins (kind 'j', j = k) lists, for each joined
@@ -131,6 +150,7 @@ func (h *SieveHeader) Marshal() ([]byte, error) {
 	body = binary.BigEndian.AppendUint32(body, uint32(h.Map.B))
 	body = append(body, byte(h.K), byte(h.J))
 	body = binary.BigEndian.AppendUint32(body, h.Cap)
+	body = binary.BigEndian.AppendUint16(body, uint16(h.Ceiling))
 	body = binary.BigEndian.AppendUint64(body, h.Survivors)
 	if h.Joins {
 		body = binary.BigEndian.AppendUint64(body, h.Joined)
@@ -170,6 +190,8 @@ func (h *SieveHeader) validate() error {
 		return fmt.Errorf("j = %d: want 1 <= j <= k = %d", h.J, h.K)
 	case h.Cap < 1 || h.Cap > MaxCap:
 		return fmt.Errorf("cap = %d: want 1 <= cap <= %d", h.Cap, MaxCap)
+	case h.Ceiling < MinCeiling || h.Ceiling > MaxCeiling:
+		return fmt.Errorf("ceiling W = %d bits: want %d to %d", h.Ceiling, MinCeiling, MaxCeiling)
 	case len(h.ClosedAt) != h.J:
 		return fmt.Errorf("%d closing counts for j = %d", len(h.ClosedAt), h.J)
 	case h.Joins && (h.J != h.K || h.Joined > h.Survivors):
@@ -223,12 +245,13 @@ func ParseSieveHeader(b []byte) (*SieveHeader, error) {
 	h.K = int(d.u8("k"))
 	h.J = int(d.u8("j"))
 	h.Cap = d.u32("step cap")
+	h.Ceiling = int(d.u16("ceiling"))
 	h.Survivors = d.u64("survivor count")
 	if h.Joins = p.kind == KindJoins; h.Joins {
 		h.Joined = d.u64("joined count")
 	}
 	if d.err == nil && (h.J < 1 || h.J > h.K || h.K > MaxK) {
-		return nil, formatErr(22, "k = %d, j = %d: want 1 <= j <= k <= %d", h.K, h.J, MaxK)
+		return nil, formatErr(PreambleSize+8, "k = %d, j = %d: want 1 <= j <= k <= %d", h.K, h.J, MaxK)
 	}
 	for t := 1; t <= h.J && d.err == nil; t++ {
 		h.ClosedAt = append(h.ClosedAt, d.u64("closing count"))
@@ -299,6 +322,13 @@ func (d *decoder) take(n int, field string) []byte {
 func (d *decoder) u8(field string) uint8 {
 	if b := d.take(1, field); b != nil {
 		return b[0]
+	}
+	return 0
+}
+
+func (d *decoder) u16(field string) uint16 {
+	if b := d.take(2, field); b != nil {
+		return binary.BigEndian.Uint16(b)
 	}
 	return 0
 }

@@ -36,6 +36,7 @@ type CycleCount struct {
 // number falls under exactly one of the five counts.
 type Summary struct {
 	Sieve     *big.Int // in a closing class above the small bound: T^t(n) < n, t its stopping time
+	Join      *big.Int // in a joined survivor class above the small bound: meets n - delta after k steps
 	Search    *big.Int // in a survivor class, found to drop below itself by iteration
 	Small     *big.Int // at or below the small bound, found to drop by direct iteration
 	Cycle     *big.Int // reach a cycle without dropping below themselves
@@ -122,10 +123,33 @@ type RangeHeader struct {
 	K         int // the sieve's modulus exponent (its step budget equals it)
 	E         int // blocks are aligned intervals of 2^E numbers
 	Cap       uint32
+	Ceiling   int // W: an iterate of 2^W or more stops the search of a number, undecided
 	Lo, Hi    *big.Int
 	Rules     []Rule // predecessor rules, tried in order
 	Blocks    int
 	Totals    Summary
+}
+
+// RangeMinCeiling is the least ceiling W a range certificate over numbers
+// below hi may state (SPEC.md, section 6): W >= bitlen(hi + |b|) +
+// k*bitlen(a). Every iterate x_i with i <= k of a number below hi is then
+// below 2^W (x_i < (hi + |b|)*a^i), so a search that jumps k steps at once
+// cannot pass over an iterate at the ceiling.
+func RangeMinCeiling(m Map, k int, hi *big.Int) int {
+	b := int64(m.B)
+	if b < 0 {
+		b = -b
+	}
+	x := new(big.Int).Add(hi, big.NewInt(b))
+	return x.BitLen() + k*big.NewInt(int64(m.A)).BitLen()
+}
+
+// DefaultRangeCeiling is the ceiling the writer states when none is
+// given: DefaultCeiling of the bit length of hi - 1, raised to
+// RangeMinCeiling if need be.
+func DefaultRangeCeiling(m Map, k int, hi *big.Int) int {
+	top := new(big.Int).Sub(hi, big.NewInt(1))
+	return max(DefaultCeiling(top.BitLen()), RangeMinCeiling(m, k, hi))
 }
 
 // BlockSpan returns the number of blocks of [lo, hi) with blocks of 2^e,
@@ -152,8 +176,15 @@ func appendOptNat(b []byte, x *big.Int) []byte {
 
 func fits(x *big.Int, bits int) bool { return x != nil && x.Sign() >= 0 && x.BitLen() <= bits }
 
+func (s *Summary) counts() []*big.Int {
+	return append([]*big.Int{s.Sieve, s.Join, s.Search, s.Small, s.Cycle, s.Undecided}, s.Rules...)
+}
+
 func (s *Summary) appendCounts(b []byte, wide bool) ([]byte, error) {
-	for _, c := range []*big.Int{s.Sieve, s.Search, s.Small, s.Cycle, s.Undecided} {
+	if len(s.Rules) > MaxRules {
+		return nil, fmt.Errorf("cert: %d rule counts exceed the cap of %d", len(s.Rules), MaxRules)
+	}
+	for _, c := range s.counts() {
 		if wide {
 			if !fits(c, 128) {
 				return nil, fmt.Errorf("cert: count %v does not fit 128 bits", c)
@@ -186,23 +217,6 @@ func (s *Summary) appendCounts(b []byte, wide bool) ([]byte, error) {
 			b = appendU128(b, c.Count)
 		} else {
 			b = binary.BigEndian.AppendUint64(b, c.Count.Uint64())
-		}
-	}
-	if len(s.Rules) > MaxRules {
-		return nil, fmt.Errorf("cert: %d rule counts exceed the cap of %d", len(s.Rules), MaxRules)
-	}
-	b = append(b, byte(len(s.Rules)))
-	for _, c := range s.Rules {
-		if wide {
-			if !fits(c, 128) {
-				return nil, fmt.Errorf("cert: rule count %v does not fit 128 bits", c)
-			}
-			b = appendU128(b, c)
-		} else {
-			if !fits(c, 64) {
-				return nil, fmt.Errorf("cert: block rule count %v does not fit 64 bits", c)
-			}
-			b = binary.BigEndian.AppendUint64(b, c.Uint64())
 		}
 	}
 	return b, nil
@@ -247,15 +261,22 @@ func (d *decoder) optNat(field string) *big.Int {
 	return d.nat(field)
 }
 
-func (d *decoder) summary(wide bool) Summary {
+// summary reads a summary with rules rule counts (the header's rule
+// count); wide counts are u128 (the header's), else u64.
+func (d *decoder) summary(wide bool, rules int) Summary {
 	var s Summary
-	counts := []**big.Int{&s.Sieve, &s.Search, &s.Small, &s.Cycle, &s.Undecided}
-	for _, c := range counts {
+	count := func() *big.Int {
 		if wide {
-			*c = d.u128("count")
-		} else {
-			*c = new(big.Int).SetUint64(d.u64("count"))
+			return d.u128("count")
 		}
+		return new(big.Int).SetUint64(d.u64("count"))
+	}
+	for _, c := range []**big.Int{&s.Sieve, &s.Join, &s.Search, &s.Small, &s.Cycle, &s.Undecided} {
+		*c = count()
+	}
+	s.Rules = []*big.Int{}
+	for range rules {
+		s.Rules = append(s.Rules, count())
 	}
 	s.SigmaSum = d.u128("stopping-time sum")
 	s.MaxSigma = d.u32("largest stopping time")
@@ -265,7 +286,9 @@ func (d *decoder) summary(wide bool) Summary {
 		d.err = formatErr(int64(d.off-4), "%d records exceed the cap of %d", n, MaxRecords1)
 	}
 	for i := uint32(0); i < n && d.err == nil; i++ {
-		s.Records = append(s.Records, Point{N: d.nat("record"), Sigma: d.u32("record stopping time")})
+		p := Point{N: d.nat("record n")}
+		p.Sigma = d.u32("record stopping time")
+		s.Records = append(s.Records, p)
 	}
 	n = d.u32("cycle count")
 	if d.err == nil && n > MaxCycles {
@@ -273,24 +296,8 @@ func (d *decoder) summary(wide bool) Summary {
 	}
 	for i := uint32(0); i < n && d.err == nil; i++ {
 		c := CycleCount{Min: d.nat("cycle minimum")}
-		if wide {
-			c.Count = d.u128("cycle count")
-		} else {
-			c.Count = new(big.Int).SetUint64(d.u64("cycle count"))
-		}
+		c.Count = count()
 		s.Cycles = append(s.Cycles, c)
-	}
-	nr := d.u8("rule count")
-	if d.err == nil && nr > MaxRules {
-		d.err = formatErr(int64(d.off-1), "%d rule counts exceed the cap of %d", nr, MaxRules)
-	}
-	s.Rules = []*big.Int{}
-	for i := 0; i < int(nr) && d.err == nil; i++ {
-		if wide {
-			s.Rules = append(s.Rules, d.u128("rule count"))
-		} else {
-			s.Rules = append(s.Rules, new(big.Int).SetUint64(d.u64("rule count")))
-		}
 	}
 	return s
 }
@@ -331,10 +338,12 @@ func (b *Block) validate() error {
 }
 
 // ParseBlock decodes a block record; base is its file offset, for errors.
-func ParseBlock(rec []byte, base int64) (*Block, error) {
+// rules is the number of predecessor rules of the range's header, which
+// fixes the number of rule counts.
+func ParseBlock(rec []byte, base int64, rules int) (*Block, error) {
 	d := decoder{buf: rec}
 	b := &Block{Index: d.u32("block index")}
-	b.Summary = d.summary(false)
+	b.Summary = d.summary(false, rules)
 	n := d.u32("undecided count")
 	if d.err == nil && n > MaxUndecided {
 		d.err = formatErr(int64(d.off-4), "%d undecided numbers exceed the cap of %d", n, MaxUndecided)
@@ -369,6 +378,7 @@ func (h *RangeHeader) Marshal() ([]byte, error) {
 	body = append(body, h.SieveRoot[:]...)
 	body = append(body, byte(h.K), byte(h.E))
 	body = binary.BigEndian.AppendUint32(body, h.Cap)
+	body = binary.BigEndian.AppendUint16(body, uint16(h.Ceiling))
 	body = appendNat(appendNat(body, h.Lo), h.Hi)
 	body = append(body, byte(len(h.Rules)))
 	for _, r := range h.Rules {
@@ -397,6 +407,9 @@ func (h *RangeHeader) validate() error {
 		return fmt.Errorf("cap = %d: want k+1 = %d to %d", h.Cap, h.K+1, MaxCap)
 	case h.Lo == nil || h.Hi == nil || h.Lo.Sign() <= 0 || h.Lo.Cmp(h.Hi) >= 0 || natLen(h.Hi) > MaxNatBytes:
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", h.Lo, h.Hi)
+	}
+	if w := RangeMinCeiling(h.Map, h.K, h.Hi); h.Ceiling < max(w, MinCeiling) || h.Ceiling > MaxCeiling {
+		return fmt.Errorf("ceiling W = %d bits: want %d (and at least %d) to %d", h.Ceiling, w, MinCeiling, MaxCeiling)
 	}
 	if len(h.Rules) > MaxRules {
 		return fmt.Errorf("%d rules: at most %d", len(h.Rules), MaxRules)
@@ -436,6 +449,7 @@ func ParseRangeHeader(b []byte) (*RangeHeader, error) {
 	h.K = int(d.u8("sieve k"))
 	h.E = int(d.u8("block exponent"))
 	h.Cap = d.u32("step cap")
+	h.Ceiling = int(d.u16("ceiling"))
 	h.Lo = d.nat("from")
 	h.Hi = d.nat("to")
 	nr := d.u8("rule count")
@@ -448,7 +462,7 @@ func ParseRangeHeader(b []byte) (*RangeHeader, error) {
 		r.Steps = int(d.u8("rule steps"))
 		h.Rules = append(h.Rules, r)
 	}
-	h.Totals = d.summary(true)
+	h.Totals = d.summary(true, len(h.Rules))
 	if d.err != nil {
 		return nil, d.err
 	}

@@ -30,6 +30,19 @@ type Options struct {
 	// Span, if set, re-derives only that share of the records, so that
 	// reviewers can split a check among themselves.
 	Span *Span
+
+	// Budget is the most work, in steps of T, the reader allows (SPEC.md,
+	// "Work"); a certificate whose work bound exceeds it is refused as
+	// beyond limits before that work. 0 means DefaultBudget.
+	Budget uint64
+
+	// Progress, if set, is called after each record re-derived, with the
+	// records done and the records to do.
+	Progress func(done, total int)
+
+	// joins, if set, receives the join flags of a sieve with joins, for a
+	// range that rests on it.
+	joins *[][]uint64
 }
 
 // File checks the certificate stored at path.
@@ -38,7 +51,7 @@ func File(path string, o Options) *Report {
 	if err != nil {
 		rep := newReport(o)
 		rep.File = path
-		return rep.fail(&Failure{Class: ErrMalformed, Reason: "unreadable", Msg: "cannot read: " + err.Error()})
+		return rep.fail(&Failure{Class: ErrUsage, Reason: ReasonUnreadable, Msg: "cannot read: " + err.Error()})
 	}
 	defer f.Close()
 	rep := Check(f, o)
@@ -68,13 +81,13 @@ func Check(r io.Reader, o Options) *Report {
 	// The header and the stored tree first: a changed byte there shows
 	// as a hash failure before any claim is read.
 	if got := leafHash(f.header); got != f.tree[0][0] {
-		return rep.fail(invalid("hash", Where{Offset: new(int64)}, "the header hashes to %s; the stored tree says %s", short(got), short(f.tree[0][0])))
+		return rep.fail(invalid(ReasonHash, Where{Offset: new(int64)}, "the header hashes to %s; the stored tree says %s", short(got), short(f.tree[0][0])))
 	}
 	if fl := verifyTree(f.tree); fl != nil {
 		return rep.fail(fl)
 	}
 	if o.Root != nil && *o.Root != root {
-		return rep.fail(invalid("root", Where{Expected: hexHash(*o.Root), Found: rep.Root},
+		return rep.fail(invalid(ReasonRoot, Where{Expected: hexHash(*o.Root), Found: rep.Root},
 			"the certificate's root %s is not the expected %s", rep.Root, hexHash(*o.Root)))
 	}
 
@@ -82,7 +95,10 @@ func Check(r io.Reader, o Options) *Report {
 		return checkRange(f, rep, o)
 	}
 	sv := newSieve(f.hdr)
-	sv.useMemo, sv.work = !o.Plain, newMeter()
+	sv.useMemo = !o.Plain
+	if fl := sv.sieveLimits(budgetOf(o)); fl != nil {
+		return rep.fail(fl)
+	}
 	if f.shard != nil || o.Span != nil {
 		base, from, upto := 0, 0, f.records
 		if f.shard != nil {
@@ -92,14 +108,18 @@ func Check(r io.Reader, o Options) *Report {
 			from, upto = spanOf(*o.Span, f.records)
 			rep.Span = &SpanReport{Index: o.Span.I, Of: o.Span.N, First: base + from, Count: upto - from}
 		}
-		if fl := sv.checkSievePart(f, base, from, upto); fl != nil {
+		if fl := sv.checkSievePart(f, base, from, upto, o.Progress); fl != nil {
 			return rep.fail(fl)
 		}
 		return rep.finish()
 	}
-	tally, fl := sv.checkChunks(f, o.Workers)
+	sv.keepJoins = o.joins != nil && sv.h.joins
+	tally, fl := sv.checkChunks(f, o.Workers, o.Progress)
 	if fl != nil {
 		return rep.fail(fl)
+	}
+	if sv.keepJoins {
+		*o.joins = tally.flags
 	}
 	if fl := sv.checkCounts(tally); fl != nil {
 		return rep.fail(fl)
@@ -132,6 +152,7 @@ func (r *Report) finish() *Report {
 func (r *Report) describe(f *file) {
 	h := f.hdr
 	r.Kind, r.Map, r.K, r.J, r.Cap, r.Chunks = "sieve", mapName(h.a, h.b), h.k, h.j, h.cap, f.records
+	r.Ceiling = h.ceiling
 	r.Survivors = numU(h.survivors)
 	if h.joins {
 		r.Joined, r.SieveSurvivors = numU(h.joined), numU(h.survivors)
@@ -158,8 +179,10 @@ func (r *Report) describeRange(f *file) {
 	r.Kind, r.Map, r.K, r.Cap, r.Chunks = "range", mapName(h.a, h.b), h.k, h.cap, f.records
 	r.SieveRoot, r.From, r.To, r.BlockExp = hexHash(h.sieveRoot), Num(h.lo.String()), Num(h.hi.String()), h.e
 	t := &h.tot
-	r.Counts = &RangeCounts{Sieve: Num(t.counts[0].String()), Search: Num(t.counts[1].String()), Small: Num(t.counts[2].String()),
-		Cycle: Num(t.counts[3].String()), Undecided: Num(t.counts[4].String()), StoppingTimeSum: Num(t.sum.String())}
+	r.Counts = &RangeCounts{Sieve: Num(t.counts[cSieve].String()), Join: Num(t.counts[cJoin].String()), Search: Num(t.counts[cSearch].String()),
+		Small: Num(t.counts[cSmall].String()), Cycle: Num(t.counts[cCycle].String()), Undecided: Num(t.counts[cUndecided].String()),
+		StoppingTimeSum: Num(t.sum.String())}
+	r.Ceiling = h.ceiling
 	r.Counts.Rules = []RuleReport{}
 	for i, x := range h.rules {
 		rr := RuleReport{Class: fmt.Sprintf("%d*q+%d", x.m, x.c), Predecessor: fmt.Sprintf("%d*q+%d", x.mp, x.cp), Steps: x.steps, Numbers: "0"}
@@ -179,6 +202,8 @@ type tally struct {
 	stubs     int
 	joined    uint64 // joins verified
 	allJoins  bool   // every chunk was read, so joined is the whole count
+	done      int    // chunks below the top verified
+	flags     [][]uint64
 }
 
 type result struct {
@@ -189,7 +214,7 @@ type result struct {
 // checkChunks reads every chunk in order and verifies them in parallel.
 // Results are taken in file order, so the failure reported is always the
 // first one in the file, whatever the number of workers.
-func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
+func (sv *sieve) checkChunks(f *file, workers int, progress func(done, total int)) (tally, *Failure) {
 	t := tally{closed: make([]uint64, sv.j+1), allJoins: sv.h.joins}
 	rec, fl := f.record()
 	if fl != nil {
@@ -205,7 +230,7 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 	t.add(top)
 	t.stubs = len(top.stubs)
 	if len(top.stubs) != f.records-1 {
-		return t, invalid("count", Where{Claim: "chunks", Expected: strconv.Itoa(len(top.stubs) + 1), Found: strconv.Itoa(f.records)},
+		return t, invalid(ReasonCount, Where{Claim: "chunks", Expected: strconv.Itoa(len(top.stubs) + 1), Found: strconv.Itoa(f.records)},
 			"the header declares %d chunks below the top; the top of the trie has %d classes open at depth %d", f.records-1, len(top.stubs), sv.d)
 	}
 
@@ -271,6 +296,12 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 		}
 		if first == nil && res.w != nil {
 			t.add(res.w)
+			if sv.keepJoins {
+				t.flags = append(t.flags, res.w.flags)
+			}
+			if t.done++; progress != nil {
+				progress(t.done, f.records-1)
+			}
 		}
 	}
 	wg.Wait()
@@ -281,7 +312,7 @@ func (sv *sieve) checkChunks(f *file, workers int) (tally, *Failure) {
 func (sv *sieve) leaf(f *file, i int, rec []byte) *Failure {
 	if got := leafHash(rec); got != f.tree[0][i+1] {
 		c := i
-		return invalid("hash", Where{Chunk: &c, Offset: &f.offsets[i], Expected: short(f.tree[0][i+1]), Found: short(got)},
+		return invalid(ReasonHash, Where{Chunk: &c, Offset: &f.offsets[i], Expected: short(f.tree[0][i+1]), Found: short(got)},
 			"the chunk hashes to %s; the stored tree says %s", short(got), short(f.tree[0][i+1]))
 	}
 	return nil
@@ -301,16 +332,16 @@ func (sv *sieve) checkCounts(t tally) *Failure {
 	h := sv.h
 	got := t.survivors << (h.k - h.j)
 	if got != h.survivors {
-		return invalid("count", Where{Claim: "survivors", Expected: strconv.FormatUint(got, 10), Found: strconv.FormatUint(h.survivors, 10)},
+		return invalid(ReasonCount, Where{Claim: "survivors", Expected: strconv.FormatUint(got, 10), Found: strconv.FormatUint(h.survivors, 10)},
 			"the header counts %d survivors mod 2^%d; the chunks hold %d", h.survivors, h.k, got)
 	}
 	if t.allJoins && t.joined != h.joined {
-		return invalid("count", Where{Claim: "joined survivors", Expected: strconv.FormatUint(t.joined, 10), Found: strconv.FormatUint(h.joined, 10)},
+		return invalid(ReasonCount, Where{Claim: "joined survivors", Expected: strconv.FormatUint(t.joined, 10), Found: strconv.FormatUint(h.joined, 10)},
 			"the header counts %d joined survivors; the chunks hold %d joins", h.joined, t.joined)
 	}
 	for s := 1; s <= h.j; s++ {
 		if t.closed[s] != h.closedAt[s-1] {
-			return invalid("count", Where{Claim: fmt.Sprintf("classes closing at step %d", s), Step: s,
+			return invalid(ReasonCount, Where{Claim: fmt.Sprintf("classes closing at step %d", s), Step: s,
 				Expected: strconv.FormatUint(t.closed[s], 10), Found: strconv.FormatUint(h.closedAt[s-1], 10)},
 				"the header counts %d classes closing at step %d; the chunks hold %d", h.closedAt[s-1], s, t.closed[s])
 		}

@@ -178,7 +178,8 @@ func TestBadPreamble(t *testing.T) {
 		reason string
 	}{
 		{"wrong magic", func(b []byte) []byte { b[0] = 'D'; return b }, "not a descent certificate"},
-		{"unknown version", func(b []byte) []byte { b[8] = 2; return b }, "unknown format version 2"},
+		{"unknown version", func(b []byte) []byte { b[8] = 3; return b }, "unknown format version 3"},
+		{"format version 1", func(b []byte) []byte { b[8] = 1; return b }, "version 1 is an older format"},
 		{"unknown kind", func(b []byte) []byte { b[9] = 'x'; return b }, "unknown certificate kind"},
 		{"trailing bytes", func(b []byte) []byte { return append(b, 0) }, "follow the last record"},
 		{"leading garbage", func(b []byte) []byte { return append([]byte{0}, b...) }, "not a descent certificate"},
@@ -196,6 +197,7 @@ func handHeader(records uint32, k, j int) []byte {
 	body = binary.BigEndian.AppendUint32(body, 1)
 	body = append(body, byte(k), byte(j))
 	body = binary.BigEndian.AppendUint32(body, 100000)
+	body = binary.BigEndian.AppendUint16(body, 128)
 	body = binary.BigEndian.AppendUint64(body, 1)
 	body = append(body, make([]byte, 8*j)...)
 	body = binary.BigEndian.AppendUint32(body, 0)
@@ -224,14 +226,14 @@ func TestLengthsBeyondTheFileAllocateLittle(t *testing.T) {
 }
 
 func TestFatesByTheCheckersOwnArithmetic(t *testing.T) {
-	sv := newSieve(&sieveHeader{a: 3, b: 1, k: 8, j: 8, cap: 1000})
+	sv := newSieve(&sieveHeader{a: 3, b: 1, k: 8, j: 8, cap: 1000, ceiling: 128})
 	// OEIS A126241: under T, 27 first drops below itself after 59 steps.
 	e := sv.fateOf(big.NewInt(27))
 	require.Equal(t, byte(1), e.fate)
 	require.EqualValues(t, 59, e.steps)
 	// From memory: 5n+1 has cycles through 13 (13, 33, 83, 208, 104, 52,
 	// 26) and 17 (17, 43, 108, 54, 27, 68, 34).
-	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1000})
+	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1000, ceiling: 128})
 	for _, n := range []int64{1, 13, 17} {
 		e := sv.fateOf(big.NewInt(n))
 		require.Equal(t, byte(2), e.fate, "n = %d", n)
@@ -239,4 +241,23 @@ func TestFatesByTheCheckersOwnArithmetic(t *testing.T) {
 	}
 	// 5n+1, n = 7: believed to diverge; within the cap it is undecided.
 	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
+}
+
+func TestFateStopsAtTheCeiling(t *testing.T) {
+	// An orbit of 5n+1 grows by about log2(5/4)/2 = 0.16 bits per step on
+	// average (half the steps multiply by about 5/2, half halve; common
+	// practice, no source), so from 7 it passes 2^128 within about 800
+	// steps: with W = 128 and a cap of 2^24 the fate rule stops there,
+	// undecided, after that many steps, not 2^24.
+	sv := newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1 << 24, ceiling: 128})
+	sv.work = newMeter(big.NewInt(1 << 24))
+	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
+	used := 1<<24 - sv.work.left.Load()
+	require.Less(t, used, int64(5000), "steps taken before the ceiling")
+	// The same orbit under a ceiling of 8192 bits runs longer, but still
+	// stops far before the cap.
+	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1 << 24, ceiling: 8192})
+	sv.work = newMeter(big.NewInt(1 << 24))
+	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
+	require.Greater(t, 1<<24-sv.work.left.Load(), used)
 }

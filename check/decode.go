@@ -14,7 +14,7 @@ import (
 
 const (
 	magic       = "descent\x00"
-	version     = 1
+	version     = 2
 	kindSieve   = 's'
 	kindJoins   = 'j' // a sieve with joins
 	kindRange   = 'r'
@@ -32,6 +32,8 @@ const (
 	maxNat       = 255
 	maxK         = 64
 	chunkHead    = 14
+	minCeiling   = 128
+	maxCeiling   = 8192
 )
 
 type exception struct {
@@ -46,6 +48,7 @@ type sieveHeader struct {
 	b         int32
 	k, j      int
 	cap       uint32
+	ceiling   int // W: following an orbit stops, undecided, at an iterate of 2^W or more
 	survivors uint64
 	joins     bool     // a sieve with joins (kind 'j')
 	joined    uint64   // its joined survivors
@@ -100,7 +103,7 @@ func (f *file) readHeader() *Failure {
 		return malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
 	}
 	if pre[8] != version {
-		return malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
+		return versionFailure(pre[8])
 	}
 	if pre[9] != kindSieve && pre[9] != kindJoins && pre[9] != kindRange && pre[9] != kindShard {
 		return malformed(9, "unknown certificate kind %q", pre[9])
@@ -230,6 +233,13 @@ func (p *fields) byte1(what string) byte {
 	return 0
 }
 
+func (p *fields) int16be(what string) uint16 {
+	if b := p.next(2, what); b != nil {
+		return binary.BigEndian.Uint16(b)
+	}
+	return 0
+}
+
 func (p *fields) int32be(what string) uint32 {
 	if b := p.next(4, what); b != nil {
 		return binary.BigEndian.Uint32(b)
@@ -269,6 +279,7 @@ func parseSieveHeader(body []byte, joins bool) (*sieveHeader, *Failure) {
 	h.k = int(p.byte1("k"))
 	h.j = int(p.byte1("j"))
 	h.cap = p.int32be("step cap")
+	h.ceiling = int(p.int16be("ceiling"))
 	h.survivors = p.int64be("survivor count")
 	if h.joins = joins; joins {
 		h.joined = p.int64be("joined count")
@@ -319,8 +330,12 @@ func (h *sieveHeader) sane(records int) *Failure {
 		return malformed(at+4, "constant %d: the format needs an odd b > -a", h.b)
 	case h.cap < 1 || h.cap > maxCap:
 		return malformed(at+10, "step cap %d: the format allows 1 to %d", h.cap, maxCap)
-	case h.joins && (h.j != h.k || h.joined > h.survivors):
-		return malformed(at+24, "a sieve with joins needs j = k and at most %d joined of its survivors", h.survivors)
+	case h.ceiling < minCeiling || h.ceiling > maxCeiling:
+		return malformed(at+14, "ceiling %d bits: the format allows %d to %d", h.ceiling, minCeiling, maxCeiling)
+	case h.joins && h.j != h.k:
+		return malformed(at+9, "a sieve with joins needs j = k; this one has j = %d, k = %d", h.j, h.k)
+	case h.joins && h.joined > h.survivors:
+		return malformed(at+24, "a sieve with joins claims %d joined of its %d survivors", h.joined, h.survivors)
 	case records < 2 || records-1 > 1<<splitDepth(h.j):
 		return malformed(10, "%d records: a trie cut at depth %d has 1 to %d classes below the top", records, splitDepth(h.j), 1<<splitDepth(h.j))
 	}
@@ -336,6 +351,20 @@ func (h *sieveHeader) sane(records int) *Failure {
 		}
 	}
 	return nil
+}
+
+// versionFailure reports a file of another format version: malformed for
+// this checker, with the remedy for an older one.
+func versionFailure(v byte) *Failure {
+	off := int64(8)
+	fl := &Failure{Class: ErrMalformed, Reason: ReasonVersion, Where: Where{Offset: &off}}
+	if v < version {
+		fl.Msg = fmt.Sprintf("format version %d is an older format that this checker no longer reads (it reads version %d)", v, version)
+		fl.Hint = "re-emit the certificate with this version of descent"
+	} else {
+		fl.Msg = fmt.Sprintf("unknown format version %d; this checker reads version %d", v, version)
+	}
+	return fl
 }
 
 func mapName(a uint32, b int32) string {

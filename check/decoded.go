@@ -11,6 +11,7 @@ type Decoded struct {
 	Map        string
 	K, J       int
 	Cap        uint32
+	Ceiling    int
 	Survivors  uint64
 	Joins      bool     // a sieve with joins
 	Joined     uint64   // the joined survivors it claims
@@ -41,7 +42,7 @@ type DecodedRange struct {
 
 // DecodedSummary is a block's or the range's summary, numbers in decimal.
 type DecodedSummary struct {
-	Counts   [5]string
+	Counts   [nCounts]string // sieve, join, search, small, cycle, undecided
 	Sum      string
 	MaxSigma uint32
 	MaxAt    string
@@ -81,7 +82,7 @@ type DecodedChunk struct {
 	// A sieve with joins: for each survivor of a chunk below the top, in
 	// order, whether it is joined, and the deltas of the joined ones.
 	Joined []bool
-	Delta  []int64
+	Delta  []uint64
 }
 
 // DecodedClass is a leaf of the trie: Residue mod 2^Depth, closed at step
@@ -113,7 +114,7 @@ func Decode(r io.Reader) (*Decoded, error) {
 	}
 	rep := &Report{}
 	rep.describe(f)
-	d := &Decoded{Header: f.header, Records: f.records, Map: rep.Map, K: f.hdr.k, J: f.hdr.j, Cap: f.hdr.cap,
+	d := &Decoded{Header: f.header, Records: f.records, Map: rep.Map, K: f.hdr.k, J: f.hdr.j, Cap: f.hdr.cap, Ceiling: f.hdr.ceiling,
 		Survivors: f.hdr.survivors, Joins: f.hdr.joins, Joined: f.hdr.joined, ClosedAt: f.hdr.closedAt, Exceptions: rep.Exceptions, Tree: f.tree, Offsets: f.offsets, Shard: shard}
 	for i := 0; ; i++ {
 		rec, fl := f.record()
@@ -193,7 +194,7 @@ func decodeChunk(rec []byte, i int, h *sieveHeader, base int64) (DecodedChunk, *
 	if fl != nil {
 		return c, fl
 	}
-	c.Joined, c.Delta = joined, []int64{}
+	c.Joined, c.Delta = joined, []uint64{}
 	for x, d := range deltas {
 		if joined[x] {
 			c.Delta = append(c.Delta, d)
@@ -204,7 +205,7 @@ func decodeChunk(rec []byte, i int, h *sieveHeader, base int64) (DecodedChunk, *
 
 func decodeRange(f *file, base int) (*Decoded, error) {
 	h := f.rng
-	d := &Decoded{Header: f.header, Records: f.records, Map: mapName(h.a, h.b), K: h.k, Cap: h.cap, Tree: f.tree, Offsets: f.offsets,
+	d := &Decoded{Header: f.header, Records: f.records, Map: mapName(h.a, h.b), K: h.k, Cap: h.cap, Ceiling: h.ceiling, Tree: f.tree, Offsets: f.offsets,
 		Range: &DecodedRange{SieveRoot: h.sieveRoot, From: h.lo.String(), To: h.hi.String(), BlockExp: h.e, Totals: decodedSummary(&h.tot),
 			SieveK: h.k, Count: h.blocks(), Rules: []string{}}}
 	for _, r := range h.rules {
@@ -218,7 +219,7 @@ func decodeRange(f *file, base int) (*Decoded, error) {
 		if rec == nil {
 			return d, nil
 		}
-		b, fl := parseBlock(rec, f.offsets[i])
+		b, fl := parseBlock(rec, f.offsets[i], len(h.rules))
 		if fl != nil {
 			return nil, fl
 		}

@@ -1,7 +1,6 @@
 package check
 
 import (
-	"encoding/binary"
 	"fmt"
 	"math/big"
 	"math/bits"
@@ -18,12 +17,15 @@ const maxJoinSurvivors = 1 << 22
 
 // readJoins reads a join section for n survivors (SPEC.md, section 8):
 // a code per survivor (0: not joined; 10: joined to r - 1; 11: joined to
-// r - delta, delta from the varints), zero bits to a whole byte, then one
-// canonical zigzag varint, never 1, per code 11, using every byte. It
-// returns whether each survivor is joined and its delta; at is the
-// section's offset.
-func readJoins(rest []byte, n, chunk int, at int64) ([]bool, []int64, *Failure) {
-	joined, deltas := make([]bool, n), make([]int64, n)
+// r - delta, delta = 2 + the next varint), zero bits to a whole byte, then
+// one unsigned shortest-form varint of at most 2^64 - 3 per code 11, using
+// every byte. It returns whether each survivor is joined and its delta;
+// at is the section's offset.
+func readJoins(rest []byte, n, chunk int, at int64) ([]bool, []uint64, *Failure) {
+	if need := (n + 7) / 8; len(rest) < need {
+		return nil, nil, malformed(at, "chunk %d: the join codes of %d survivors need at least %d bytes, the section has %d", chunk, n, need, len(rest))
+	}
+	joined, deltas := make([]bool, n), make([]uint64, n)
 	pos, nbit := 0, 8*len(rest)
 	bit := func() (byte, bool) {
 		if pos >= nbit {
@@ -54,17 +56,42 @@ func readJoins(rest []byte, n, chunk int, at int64) ([]bool, []int64, *Failure) 
 	}
 	rest, at = rest[nb:], at+int64(nb)
 	for _, x := range explicit {
-		d, m := binary.Varint(rest)
-		if m <= 0 || m != len(binary.AppendVarint(nil, d)) || d == 1 {
-			return nil, nil, malformed(at, "chunk %d: the delta of joined survivor %d is not a canonical varint other than 1", chunk, x)
+		v, m := uvarint(rest)
+		if m <= 0 || v > maxJoinVarint {
+			return nil, nil, malformed(at, "chunk %d: the delta of joined survivor %d is not a shortest-form varint of at most 2^64 - 3", chunk, x)
 		}
-		deltas[x] = d
+		deltas[x] = v + 2
 		rest, at = rest[m:], at+int64(m)
 	}
 	if len(rest) > 0 {
 		return nil, nil, malformed(at, "chunk %d: %d bytes follow the last join", chunk, len(rest))
 	}
 	return joined, deltas, nil
+}
+
+// maxJoinVarint keeps delta = 2 + v within 64 bits.
+const maxJoinVarint = 1<<64 - 3
+
+// uvarint reads an unsigned varint: groups of 7 bits, least significant
+// first, the high bit set on every byte but the last. It returns the value
+// and its length, or length 0 if it is cut off, longer than 10 bytes, above
+// 2^64 - 1, or not the shortest form (a last byte 00 after another byte).
+func uvarint(b []byte) (uint64, int) {
+	var v uint64
+	for i := 0; i < len(b) && i < 10; i++ {
+		c := b[i]
+		if i == 9 && c > 1 {
+			return 0, 0 // beyond 64 bits
+		}
+		v |= uint64(c&0x7f) << (7 * i)
+		if c < 0x80 {
+			if c == 0 && i > 0 {
+				return 0, 0 // a longer form of a smaller varint
+			}
+			return v, i + 1
+		}
+	}
+	return 0, 0
 }
 
 // checkJoins reads the join section of a chunk whose survivors are
@@ -74,9 +101,15 @@ func (sv *sieve) checkJoins(w *walk, at int64) *Failure {
 	if fl != nil {
 		return fl
 	}
+	if sv.keepJoins {
+		w.flags = make([]uint64, (len(w.found)+63)/64)
+	}
 	for x, r := range w.found {
 		if !joined[x] {
 			continue
+		}
+		if w.flags != nil {
+			w.flags[x/64] |= 1 << (x % 64)
 		}
 		if fl := sv.join(w, r, deltas[x]); fl != nil {
 			return fl
@@ -86,19 +119,19 @@ func (sv *sieve) checkJoins(w *walk, at int64) *Failure {
 	return nil
 }
 
-// join checks that survivor r mod 2^k joins r - delta.
-func (sv *sieve) join(w *walk, r uint64, delta int64) *Failure {
-	claim := func() string { return fmt.Sprintf("joins %d mod 2^%d", int64(r)-delta, sv.j) }
-	if delta <= 0 || uint64(delta) > r {
-		return invalid("join", w.where(r, sv.j, claim(), "a smaller partner", fmt.Sprintf("partner %d", int64(r)-delta)),
-			"the partner of a join must be a smaller residue (0 <= r' < r); %d is not", int64(r)-delta)
+// join checks that survivor r mod 2^k joins r - delta, delta >= 1.
+func (sv *sieve) join(w *walk, r uint64, delta uint64) *Failure {
+	if delta > r {
+		return invalid(ReasonJoin, w.where(r, sv.j, fmt.Sprintf("joins the residue %d below it", delta), "a partner 0 <= r' < r", fmt.Sprintf("r - %d < 0", delta)),
+			"the partner of a join must be a residue 0 <= r' < r; r - %d is below zero", delta)
 	}
-	p := r - uint64(delta)
+	p := r - delta
+	claim := func() string { return fmt.Sprintf("joins %d mod 2^%d", p, sv.j) }
 	s1, v1, b1 := sv.afterK(r)
 	s2, v2, b2 := sv.afterK(p)
 	switch {
 	case s1 != s2:
-		return invalid("join", w.where(r, sv.j, claim(), fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
+		return invalid(ReasonJoin, w.where(r, sv.j, claim(), fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
 			"after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", sv.j, r, s1, p, sv.j, s2)
 	case !sameValue(v1, b1, v2, b2):
 		show := func(v uint64, b *big.Int) string {
@@ -107,7 +140,7 @@ func (sv *sieve) join(w *walk, r uint64, delta int64) *Failure {
 			}
 			return strconv.FormatUint(v, 10)
 		}
-		return invalid("join", w.where(r, sv.j, claim(), "the same value after k steps", show(v1, b1)+" and "+show(v2, b2)),
+		return invalid(ReasonJoin, w.where(r, sv.j, claim(), "the same value after k steps", show(v1, b1)+" and "+show(v2, b2)),
 			"T^%d(%d) = %s but T^%d(%d) = %s: the paths do not meet", sv.j, r, show(v1, b1), sv.j, p, show(v2, b2))
 	}
 	return nil

@@ -35,7 +35,7 @@ func verifyTree(tree [][][hashLen]byte) *Failure {
 				want = nodeHash(below[2*i], below[2*i+1])
 			}
 			if stored != want {
-				return invalid("tree", Where{}, "stored tree level %d, hash %d is %s; its children give %s",
+				return invalid(ReasonTree, Where{}, "stored tree level %d, hash %d is %s; its children give %s",
 					l, i, short(stored), short(want))
 			}
 		}

@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"fmt"
 	"io"
+	"math/big"
 	"os"
 	"strconv"
 	"strings"
@@ -14,10 +15,13 @@ import (
 // of the part's records, their offsets and the records themselves are
 // read; the rest of the file is not.
 
-// countingReader counts the bytes read through it.
+// countingReader counts the bytes read through it, and knows the size
+// of what it reads, so that no length read from the file is allocated
+// before it is known to fit.
 type countingReader struct {
-	r io.ReaderAt
-	n int64
+	r    io.ReaderAt
+	n    int64
+	size int64
 }
 
 func (c *countingReader) ReadAt(p []byte, off int64) (int, error) {
@@ -26,10 +30,14 @@ func (c *countingReader) ReadAt(p []byte, off int64) (int, error) {
 	return n, err
 }
 
-// readAt reads exactly n bytes at off, or reports the file too short.
-func readAt(r io.ReaderAt, off int64, n int64, what string) ([]byte, *Failure) {
+// readAt reads exactly n bytes at off, or reports the file too short; it
+// allocates only once the bytes are known to be in the file.
+func readAt(r *countingReader, off int64, n int64, what string) ([]byte, *Failure) {
 	if n < 0 || n > maxRecordLen {
 		return nil, malformed(off, "the %s would be %d bytes", what, n)
+	}
+	if off < 0 || off > r.size || n > r.size-off {
+		return nil, malformed(min(max(off, 0), r.size), "file ends inside the %s (%d bytes at offset %d; the file has %d)", what, n, off, r.size)
 	}
 	b := make([]byte, n)
 	if _, err := r.ReadAt(b, off); err != nil {
@@ -45,15 +53,19 @@ func Part(path, part string, root [hashLen]byte, o Options) *Report {
 	rep.File, rep.Mode = path, ModePart
 	f, err := os.Open(path)
 	if err != nil {
-		return rep.fail(&Failure{Class: ErrMalformed, Reason: "unreadable", Msg: "cannot read: " + err.Error()})
+		return rep.fail(usageFail(ReasonUnreadable, "cannot read: %v", err))
 	}
 	defer f.Close()
-	cr := &countingReader{r: f}
+	st, err := f.Stat()
+	if err != nil {
+		return rep.fail(usageFail(ReasonUnreadable, "cannot read: %v", err))
+	}
+	cr := &countingReader{r: f, size: st.Size()}
 	defer func() { rep.BytesRead = cr.n }()
 	return checkPart(cr, part, root, o, rep)
 }
 
-func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *Report) *Report {
+func checkPart(r *countingReader, part string, root [hashLen]byte, o Options, rep *Report) *Report {
 	pre, fl := readAt(r, 0, preambleLen, "preamble")
 	if fl != nil {
 		return rep.fail(fl)
@@ -68,7 +80,9 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 		return rep.fail(fl)
 	}
 	if hf.shard != nil {
-		return rep.fail(malformed(9, "-part checks a whole certificate against its root; check a shard file whole"))
+		fl := usageFail(ReasonPart, "-part checks a whole certificate against its root, and this file is a shard")
+		fl.Hint = "check a shard file whole, without -part"
+		return rep.fail(fl)
 	}
 	if hf.hdr != nil {
 		rep.describe(hf)
@@ -76,18 +90,32 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 		rep.describeRange(hf)
 	}
 	records := hf.records
+	// The stored tree and the offsets must fit in the file before anything
+	// is sized by the record count.
+	sizes := levelSizes(records + 1)
+	treeNodes := int64(0)
+	for _, s := range sizes {
+		treeNodes += int64(s)
+	}
+	if end := int64(preambleLen+len(body)) + treeNodes*hashLen + 8*int64(records+1); end > r.size {
+		return rep.fail(malformed(r.size, "the file has %d bytes; a certificate of %d records needs %d before its first record", r.size, records, end))
+	}
 	from, upto := 0, 0
 	if i, n, ok := strings.Cut(part, "/"); ok {
 		si, e1 := strconv.Atoi(i)
 		sn, e2 := strconv.Atoi(n)
 		if e1 != nil || e2 != nil || sn < 1 || si < 0 || si >= sn || sn > records {
-			return rep.fail(&Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf("-part %q: want i/N with 0 <= i < N <= %d", part, records)})
+			fl := usageFail(ReasonPart, "-part %q names no share of this certificate's %d records", part, records)
+			fl.Hint = fmt.Sprintf("want i/N with 0 <= i < N <= %d", records)
+			return rep.fail(fl)
 		}
 		from, upto = spanOf(Span{si, sn}, records)
 	} else {
 		p, err := strconv.Atoi(part)
 		if err != nil || p < 0 || p >= records {
-			return rep.fail(&Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf("-part %q: want a record from 0 to %d", part, records-1)})
+			fl := usageFail(ReasonPart, "-part %q names no record of this certificate", part)
+			fl.Hint = fmt.Sprintf("want a record from 0 to %d", records-1)
+			return rep.fail(fl)
 		}
 		from, upto = p, p+1
 	}
@@ -95,7 +123,6 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 	rep.Root = hexHash(root)
 
 	// Where each level of the stored tree begins.
-	sizes := levelSizes(records + 1)
 	levelOff := make([]int64, len(sizes))
 	off := int64(preambleLen + len(body))
 	for l, s := range sizes {
@@ -139,23 +166,27 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 	if ok, fl := proves(leafHash(append(pre, body...)), 0); fl != nil {
 		return rep.fail(fl)
 	} else if !ok {
-		return rep.fail(invalid("audit", Where{Claim: "header", Expected: hexHash(root)},
+		return rep.fail(invalid(ReasonAudit, Where{Claim: "header", Expected: hexHash(root)},
 			"the header with its audit path does not lead to the root %s: another certificate, or an altered one", hexHash(root)))
 	}
 
 	var sv *sieve
 	var stubs []stubState
-	var s *searcher
 	var m *memo
+	var joins [][]uint64
 	if hf.hdr != nil {
 		sv = newSieve(hf.hdr)
-		sv.useMemo, sv.work = !o.Plain, newMeter()
+		sv.useMemo = !o.Plain
+		if fl := sv.sieveLimits(budgetOf(o)); fl != nil {
+			return rep.fail(fl)
+		}
 		open, closed := sv.countsByTable()
 		if fl := sv.checkCounts(tally{survivors: open, closed: closed}); fl != nil {
 			return rep.fail(fl)
 		}
-		if stubs = sv.stubList(); len(stubs) != records-1 {
-			return rep.fail(invalid("count", Where{Claim: "chunks"}, "the header declares %d chunks below the top; the map has %d classes open at depth %d", records-1, len(stubs), sv.d))
+		if stubs = sv.stubList(records); len(stubs) != records-1 {
+			return rep.fail(invalid(ReasonCount, Where{Claim: "chunks"}, "the header declares %d chunks below the top; the map has %s classes open at depth %d",
+				records-1, atLeast(len(stubs), records), sv.d))
 		}
 		if sv.useMemo {
 			m = sv.newMemo()
@@ -164,14 +195,14 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 			return rep.fail(fl)
 		}
 	} else {
-		if fl := rangeSieve(hf.rng, rep, o); fl != nil {
+		if joins, fl = rangeSieve(hf.rng, rep, o); fl != nil {
 			return rep.fail(fl)
 		}
 		if fl := proveRules(hf.rng); fl != nil {
 			return rep.fail(fl)
 		}
-		s = newSearcher(hf.rng)
 	}
+	var blocks []*blockRec // a range: the part's blocks, derived once all are read
 	for g := from; g < upto; g++ {
 		b, fl := readAt(r, offsetsAt+8*int64(g), 16, "record offsets")
 		if fl != nil {
@@ -186,40 +217,68 @@ func checkPart(r io.ReaderAt, part string, root [hashLen]byte, o Options, rep *R
 		if ok, fl := proves(leafHash(rec), g+1); fl != nil {
 			return rep.fail(fl)
 		} else if !ok {
-			return rep.fail(invalid("audit", Where{Chunk: &c, Offset: &a, Expected: hexHash(root)},
+			return rep.fail(invalid(ReasonAudit, Where{Chunk: &c, Offset: &a, Expected: hexHash(root)},
 				"record %d with its audit path does not lead to the root %s: a swapped record, one from another certificate, or an altered tree", g, hexHash(root)))
 		}
-		var blk *blockRec
 		if sv != nil {
 			if g == 0 {
 				_, fl = sv.checkChunk(0, rec, nil, a, nil, len(stubs))
 			} else {
 				_, fl = sv.checkChunk(g, rec, &stubs[g-1], a, m, 0)
 			}
-		} else {
-			if blk, fl = parseBlock(rec, a); fl == nil {
-				if blk.index != uint32(g) {
-					fl = malformed(a, "record %d says it is block %d", g, blk.index)
-				} else if fl = blk.addsUp(hf.rng, g, a); fl != nil {
-				} else {
-					want, _ := s.derive(g, defaultWorkers(o.Workers))
-					if fl = s.sv.work.exceeded(); fl == nil {
-						fl = compareBlock(g, want, blk)
-					}
-				}
+			if fl != nil {
+				return rep.fail(fl)
 			}
+			if o.Progress != nil {
+				o.Progress(g+1-from, upto-from)
+			}
+			continue
+		}
+		blk, fl := parseBlock(rec, a, len(hf.rng.rules))
+		if fl == nil && blk.index != uint32(g) {
+			fl = malformed(a, "record %d says it is block %d", g, blk.index)
+		}
+		if fl == nil {
+			fl = blk.addsUp(hf.rng, g, a)
 		}
 		if fl != nil {
 			return rep.fail(fl)
 		}
-		if blk != nil {
-			for _, n := range blk.undecided {
-				rep.Undecided = append(rep.Undecided, Num(n.String()))
-			}
+		blocks = append(blocks, blk)
+	}
+	if sv != nil {
+		return rep.finish()
+	}
+	total, budget := new(big.Int), budgetOf(o)
+	for x, blk := range blocks {
+		w, _ := blockWork(hf.rng.k, hf.rng.cap, hf.rng.blockSize(from+x), &blk.sum)
+		total.Add(total, w)
+	}
+	if total.Cmp(budget) > 0 {
+		return rep.fail(overBudget(fmt.Sprintf("deriving %d blocks of this range", len(blocks)), total, budget))
+	}
+	s := newSearcher(hf.rng, joins)
+	for x, blk := range blocks {
+		if fl := s.check(from+x, blk, o.Workers); fl != nil {
+			return rep.fail(fl)
+		}
+		for _, n := range blk.undecided {
+			rep.Undecided = append(rep.Undecided, Num(n.String()))
+		}
+		if o.Progress != nil {
+			o.Progress(x+1, len(blocks))
 		}
 	}
 	if hf.rng != nil {
 		rep.Below = fatesBelow(hf.rng)
 	}
 	return rep.finish()
+}
+
+// atLeast writes n, or "more than max-1" when a count stopped at max.
+func atLeast(n, max int) string {
+	if n >= max {
+		return fmt.Sprintf("more than %d", max-1)
+	}
+	return strconv.Itoa(n)
 }

@@ -24,11 +24,16 @@ func spanOf(s Span, records int) (from, upto int) {
 }
 
 // stubList walks the top of the trie by the map's arithmetic and returns
-// the classes open at depth d, in the order of the codes.
-func (sv *sieve) stubList() []stubState {
+// the classes open at depth d, in the order of the codes, stopping after
+// max of them: the caller expects fewer, so the list never grows beyond
+// what the file's own record count allows.
+func (sv *sieve) stubList(max int) []stubState {
 	var out []stubState
 	var walk func(t, s int, v, res uint64)
 	walk = func(t, s int, v, res uint64) {
+		if len(out) >= max {
+			return
+		}
 		if t == sv.d {
 			out = append(out, stubState{res: res, s: s, v: v})
 			return
@@ -73,20 +78,20 @@ func (sv *sieve) countsByTable() (open uint64, closed []uint64) {
 // checkSievePart checks a sieve shard, or a share of a whole sieve: every
 // record's hash, the claims of the records [from, upto) of the file, the
 // header's counts by the table and its exceptions.
-func (sv *sieve) checkSievePart(f *file, base, from, upto int) *Failure {
+func (sv *sieve) checkSievePart(f *file, base, from, upto int, progress func(done, total int)) *Failure {
 	open, closed := sv.countsByTable()
 	t := tally{survivors: open, closed: closed}
 	if fl := sv.checkCounts(t); fl != nil {
 		return fl
 	}
-	stubs := sv.stubList()
 	whole := f.records
 	if f.shard != nil {
 		whole = f.shard.wholeRecords
 	}
+	stubs := sv.stubList(whole)
 	if len(stubs) != whole-1 {
-		return invalid("count", Where{Claim: "chunks", Expected: strconv.Itoa(len(stubs) + 1), Found: strconv.Itoa(whole)},
-			"the header declares %d chunks below the top; the map has %d classes open at depth %d", whole-1, len(stubs), sv.d)
+		return invalid(ReasonCount, Where{Claim: "chunks", Expected: atLeast(len(stubs)+1, whole+1), Found: strconv.Itoa(whole)},
+			"the header declares %d chunks below the top; the map has %s classes open at depth %d", whole-1, atLeast(len(stubs), whole), sv.d)
 	}
 	var m *memo
 	if sv.useMemo {
@@ -103,10 +108,14 @@ func (sv *sieve) checkSievePart(f *file, base, from, upto int) *Failure {
 		if fl := sv.leaf(f, i, rec); fl != nil {
 			return fl
 		}
+		g := base + i
 		if i < from || i >= upto {
+			// Outside the share: decoded, not judged (SPEC.md, section 3).
+			if fl := sv.grammar(g, rec, f.offsets[i]); fl != nil {
+				return fl
+			}
 			continue
 		}
-		g := base + i
 		if g == 0 {
 			_, fl = sv.checkChunk(0, rec, nil, f.offsets[i], nil, len(stubs))
 		} else {
@@ -114,6 +123,9 @@ func (sv *sieve) checkSievePart(f *file, base, from, upto int) *Failure {
 		}
 		if fl != nil {
 			return fl
+		}
+		if progress != nil {
+			progress(i+1-from, upto-from)
 		}
 	}
 	if fl := sv.checkExceptions(); fl != nil {

@@ -35,14 +35,16 @@ func TestRangeVectors(t *testing.T) {
 
 func TestRangeNeedsItsSieve(t *testing.T) {
 	b := vector(t, rangeVector)
+	// Without its sieve, or with another one: the reader's mistake, not
+	// a fault of the certificate.
 	rep := Check(bytes.NewReader(b), Options{})
-	require.ErrorIs(t, rep.Err(), ErrMalformed)
-	require.Equal(t, "sieve", rep.Reason)
-	require.Contains(t, rep.Error, "give it with -sieve FILE")
+	require.ErrorIs(t, rep.Err(), ErrUsage)
+	require.Equal(t, ReasonSieveMissing, rep.Reason)
+	require.Contains(t, rep.Hint, "-sieve FILE")
 
 	rep = Check(bytes.NewReader(b), Options{Sieve: sievePath("sieve-3n+1-k10.dcert")})
-	require.ErrorIs(t, rep.Err(), ErrInvalid)
-	require.Equal(t, "sieve", rep.Reason)
+	require.ErrorIs(t, rep.Err(), ErrUsage)
+	require.Equal(t, ReasonSieveMismatch, rep.Reason)
 }
 
 func TestRangeAudit(t *testing.T) {

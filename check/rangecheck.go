@@ -6,6 +6,7 @@ import (
 	"encoding/hex"
 	"fmt"
 	"math/big"
+	"os"
 	"sort"
 
 	"golang.org/x/crypto/blake2b"
@@ -15,7 +16,8 @@ import (
 // and verified; f is positioned at its first record.
 func checkRange(f *file, rep *Report, o Options) *Report {
 	h := f.rng
-	if fl := rangeSieve(h, rep, o); fl != nil {
+	joins, fl := rangeSieve(h, rep, o)
+	if fl != nil {
 		return rep.fail(fl)
 	}
 	if fl := proveRules(h); fl != nil {
@@ -37,9 +39,9 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		}
 		if got := leafHash(rec); got != f.tree[0][i+1] {
 			c := i
-			return rep.fail(invalid("hash", Where{Chunk: &c, Offset: &f.offsets[i]}, "block %d hashes to %s; the stored tree says %s", i, short(got), short(f.tree[0][i+1])))
+			return rep.fail(invalid(ReasonHash, Where{Chunk: &c, Offset: &f.offsets[i]}, "block %d hashes to %s; the stored tree says %s", i, short(got), short(f.tree[0][i+1])))
 		}
-		b, fl := parseBlock(rec, f.offsets[i])
+		b, fl := parseBlock(rec, f.offsets[i], len(h.rules))
 		if fl != nil {
 			return rep.fail(fl)
 		}
@@ -61,7 +63,7 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 			zero.rules = append(zero.rules, new(big.Int))
 		}
 		if d := diffSummary(&zero, &h.tot); d != "" {
-			return rep.fail(invalid("count", Where{Claim: "totals in a shard"}, "a shard's copy of the whole's header must have zero totals: %s", d))
+			return rep.fail(invalid(ReasonCount, Where{Claim: "totals in a shard"}, "a shard's copy of the whole's header must have zero totals: %s", d))
 		}
 	} else if fl := checkTotals(h, blocks); fl != nil {
 		return rep.fail(fl)
@@ -72,7 +74,6 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		}
 	}
 
-	s := newSearcher(h)
 	from, upto := 0, len(blocks) // the blocks to derive, by position in the file
 	if o.Span != nil {
 		from, upto = spanOf(*o.Span, len(blocks))
@@ -91,7 +92,7 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 			// fields) until the audit misses its wrong blocks.
 			var b [16]byte
 			if _, err := rand.Read(b[:]); err != nil {
-				return rep.fail(&Failure{Class: ErrMalformed, Reason: "malformed", Msg: "no random seed for the audit: " + err.Error()})
+				return rep.fail(usageFail(ReasonUnreadable, "no random seed for the audit: %v", err))
 			}
 			seed = hex.EncodeToString(b[:])
 		}
@@ -105,39 +106,93 @@ func checkRange(f *file, rep *Report, o Options) *Report {
 		rep.Audit.Seed, rep.Audit.SeedFrom = seed, from
 		rep.Mode = ModeAudit
 	}
+
+	// The work bound of the blocks to derive, before any of it is done.
+	total, budget := new(big.Int), budgetOf(o)
 	for _, i := range chosen {
-		want, _ := s.derive(base+i, defaultWorkers(o.Workers))
-		if fl := s.sv.work.exceeded(); fl != nil {
+		w, _ := blockWork(h.k, h.cap, h.blockSize(base+i), &blocks[i].sum)
+		total.Add(total, w)
+	}
+	if total.Cmp(budget) > 0 {
+		return rep.fail(overBudget(fmt.Sprintf("deriving %d blocks of this range", len(chosen)), total, budget))
+	}
+	s := newSearcher(h, joins)
+	for n, i := range chosen {
+		if fl := s.check(base+i, blocks[i], o.Workers); fl != nil {
 			return rep.fail(fl)
 		}
-		if fl := compareBlock(base+i, want, blocks[i]); fl != nil {
-			return rep.fail(fl)
+		if o.Progress != nil {
+			o.Progress(n+1, len(chosen))
 		}
 	}
 	rep.Below = fatesBelow(h)
 	return rep.finish()
 }
 
-// rangeSieve checks the sieve certificate a range rests on: given, valid,
-// the one it names, and for the same map with j = k.
-func rangeSieve(h *rangeHeader, rep *Report, o Options) *Failure {
+// check derives block i afresh and compares it with its record b. The
+// derivation may take no more steps than b's own counts allow (SPEC.md,
+// "Work"): a true block never needs more, so a block that does is false.
+func (s *searcher) check(i int, b *blockRec, workers int) *Failure {
+	_, steps := blockWork(s.h.k, s.h.cap, s.h.blockSize(i), &b.sum)
+	s.sv.work = newMeter(steps)
+	want, _ := s.derive(i, defaultWorkers(workers))
+	if s.sv.work.exceeded() {
+		c := i
+		return invalid(ReasonBlock, Where{Chunk: &c, Claim: "block summary", Expected: "a derivation within " + steps.String() + " steps", Found: "more steps"},
+			"re-deriving block %d takes more than the %v steps of search its counts allow (the sum of stopping times plus 4*C per cycle or undecided number): its counts are false", i, steps)
+	}
+	return compareBlock(i, want, b)
+}
+
+// rangeSieve checks the sieve certificate a range rests on: given, the
+// one it names, valid, and for the same map with j = k. It returns the
+// join flags of a sieve with joins.
+func rangeSieve(h *rangeHeader, rep *Report, o Options) ([][]uint64, *Failure) {
+	named := hexHash(h.sieveRoot)
 	if o.Sieve == "" {
-		return &Failure{Class: ErrMalformed, Reason: "sieve",
-			Msg: fmt.Sprintf("this range certificate rests on the sieve certificate with root %s; give it with -sieve FILE", hexHash(h.sieveRoot))}
+		fl := usageFail(ReasonSieveMissing, "this range certificate rests on the sieve certificate with root %s, and none was given", named)
+		fl.Hint = "give that sieve certificate with -sieve FILE"
+		return nil, fl
 	}
-	srep := File(o.Sieve, Options{Workers: o.Workers})
-	if !srep.Valid {
-		return invalid("sieve", Where{}, "the sieve certificate %s it rests on is not valid: %v", o.Sieve, srep.Err())
+	// The stored root first: a file that is not the named sieve is the
+	// reader's mistake, whatever it holds.
+	if sf, err := os.Open(o.Sieve); err != nil {
+		return nil, usageFail(ReasonUnreadable, "the sieve %s cannot be read: %v", o.Sieve, err)
+	} else {
+		g, fl := openFile(sf)
+		sf.Close()
+		if fl == nil && hexHash(g.tree[len(g.tree)-1][0]) != named {
+			fl := usageFail(ReasonSieveMismatch, "%s has the root %s, but this range rests on the sieve certificate with root %s",
+				o.Sieve, hexHash(g.tree[len(g.tree)-1][0]), named)
+			fl.Hint = "give the sieve certificate whose root is " + named
+			return nil, fl
+		}
 	}
-	if srep.Kind != "sieve" || srep.Root != hexHash(h.sieveRoot) {
-		return invalid("sieve", Where{Claim: "sieve root", Expected: hexHash(h.sieveRoot), Found: srep.Root},
-			"the certificate rests on the sieve %s, but %s is %s", hexHash(h.sieveRoot), o.Sieve, srep.Root)
+	var joins [][]uint64
+	so := Options{Workers: o.Workers, Budget: o.Budget, Plain: o.Plain, joins: &joins}
+	srep := File(o.Sieve, so)
+	if err := srep.Err(); err != nil {
+		switch fl := srep.failure; fl.Class {
+		case ErrInvalid:
+			return nil, invalid(ReasonSieve, Where{}, "the sieve certificate %s it rests on is not valid: %v", o.Sieve, err)
+		default:
+			out := *fl
+			out.Msg = fmt.Sprintf("the sieve %s: %s", o.Sieve, fl.Msg)
+			return nil, &out
+		}
+	}
+	if srep.Kind != "sieve" || srep.Root != named {
+		return nil, invalid(ReasonSieve, Where{Claim: "sieve root", Expected: named, Found: srep.Root},
+			"the certificate rests on the sieve %s, but %s is a %s with root %s", named, o.Sieve, srep.Kind, srep.Root)
 	}
 	if srep.Map != rep.Map || srep.K != h.k || srep.J != h.k {
-		return invalid("sieve", Where{Claim: "sieve"}, "the sieve is for %s with k = %d, j = %d; the range needs %s with k = j = %d",
+		return nil, invalid(ReasonSieve, Where{Claim: "sieve"}, "the sieve is for %s with k = %d, j = %d; the range needs %s with k = j = %d",
 			srep.Map, srep.K, srep.J, rep.Map, h.k)
 	}
-	return nil
+	if srep.Joined == "" {
+		joins = nil
+	}
+	return joins, nil
 }
 
 // sample picks n distinct blocks of m (SPEC.md, "Audits"): with key =
@@ -236,14 +291,14 @@ func checkTotals(h *rangeHeader, blocks []*blockRec) *Failure {
 	}
 	sortCycles(want.cycles)
 	if d := diffSummary(&want, &h.tot); d != "" {
-		return invalid("count", Where{Claim: "header totals"}, "the header's totals differ from the sum of its blocks: %s", d)
+		return invalid(ReasonCount, Where{Claim: "header totals"}, "the header's totals differ from the sum of its blocks: %s", d)
 	}
 	return nil
 }
 
-// addsUp checks that a block has a count for each rule of the header and
-// that its counts add up to the numbers in it.
-func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
+// blockSize is the number of numbers of block i: [(B0+i)*2^e, (B0+i+1)*2^e)
+// cut to [lo, hi).
+func (h *rangeHeader) blockSize(i int) *big.Int {
 	x0 := new(big.Int).Add(h.first, big.NewInt(int64(i)))
 	x0.Lsh(x0, uint(h.e))
 	lo, hi := new(big.Int).Set(x0), new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
@@ -253,10 +308,13 @@ func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
 	if hi.Cmp(h.hi) > 0 {
 		hi.Set(h.hi)
 	}
-	size := hi.Sub(hi, lo)
-	if len(b.sum.rules) != len(h.rules) {
-		return malformed(at, "block %d has %d rule counts; the header has %d predecessor rules", i, len(b.sum.rules), len(h.rules))
-	}
+	return hi.Sub(hi, lo)
+}
+
+// addsUp checks that a block has a count for each rule of the header and
+// that its counts add up to the numbers in it.
+func (b *blockRec) addsUp(h *rangeHeader, i int, at int64) *Failure {
+	size := h.blockSize(i)
 	sum := new(big.Int)
 	for _, c := range b.sum.counts {
 		sum.Add(sum, c)
@@ -285,7 +343,7 @@ func compareBlock(i int, want, got *blockRec) *Failure {
 	if d == "" {
 		return nil
 	}
-	return invalid("block", Where{Chunk: &c, Claim: "block summary"}, "block %d does not match its re-derivation: %s", i, d)
+	return invalid(ReasonBlock, Where{Chunk: &c, Claim: "block summary"}, "block %d does not match its re-derivation: %s", i, d)
 }
 
 // diffSummary names the first field in which two summaries differ.

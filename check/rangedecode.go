@@ -22,9 +22,20 @@ type cycleCount struct {
 }
 
 // summary is what a block, or the whole range, establishes.
+// The counts of a summary, in the order of the format.
+const (
+	cSieve = iota
+	cJoin
+	cSearch
+	cSmall
+	cCycle
+	cUndecided
+	nCounts
+)
+
 type summary struct {
-	counts   [5]*big.Int // sieve, search, small, cycle, undecided
-	sum      *big.Int    // of stopping times
+	counts   [nCounts]*big.Int // sieve, join, search, small, cycle, undecided
+	sum      *big.Int          // of stopping times
 	maxSigma uint32
 	maxAt    *big.Int // nil if no number drops
 	records  []point
@@ -32,7 +43,7 @@ type summary struct {
 	rules    []*big.Int // numbers justified by each predecessor rule
 }
 
-var countNames = [5]string{"numbers justified by the sieve", "numbers found to drop by search",
+var countNames = [nCounts]string{"numbers justified by the sieve", "numbers justified by a join", "numbers found to drop by search",
 	"small numbers found to drop by direct iteration", "numbers that reach a cycle", "undecided numbers"}
 
 type rangeHeader struct {
@@ -41,6 +52,7 @@ type rangeHeader struct {
 	sieveRoot [hashLen]byte
 	k, e      int
 	cap       uint32
+	ceiling   int // W: the search of a number stops, undecided, at an iterate of 2^W or more
 	lo, hi    *big.Int
 	rules     []rule
 	first     *big.Int // index of the first block: lo >> e
@@ -86,15 +98,22 @@ func (p *fields) list(what string) int {
 	return int(n)
 }
 
-// summaryOf reads a summary; wide counts are 16 bytes (header), else 8.
-func (p *fields) summaryOf(wide bool) summary {
+// summaryOf reads a summary with rules rule counts (the header's number
+// of rules); wide counts are 16 bytes (the header's), else 8.
+func (p *fields) summaryOf(wide bool, rules int) summary {
 	var s summary
-	for i := range s.counts {
+	count := func(what string) *big.Int {
 		if wide {
-			s.counts[i] = p.u128(countNames[i])
-		} else {
-			s.counts[i] = new(big.Int).SetUint64(p.int64be(countNames[i]))
+			return p.u128(what)
 		}
+		return new(big.Int).SetUint64(p.int64be(what))
+	}
+	for i := range s.counts {
+		s.counts[i] = count(countNames[i])
+	}
+	s.rules = []*big.Int{}
+	for range rules {
+		s.rules = append(s.rules, count("rule count"))
 	}
 	s.sum = p.u128("stopping-time sum")
 	s.maxSigma = p.int32be("largest stopping time")
@@ -104,25 +123,8 @@ func (p *fields) summaryOf(wide bool) summary {
 	}
 	for range p.list("cycles") {
 		c := cycleCount{min: p.natural("cycle minimum")}
-		if wide {
-			c.count = p.u128("cycle count")
-		} else {
-			c.count = new(big.Int).SetUint64(p.int64be("cycle count"))
-		}
+		c.count = count("cycle count")
 		s.cycles = append(s.cycles, c)
-	}
-	nr := int(p.byte1("rule counts"))
-	if p.bad == nil && nr > maxRules {
-		p.bad = malformed(int64(preambleLen+p.pos-1), "%d rule counts; the format allows %d", nr, maxRules)
-		return s
-	}
-	s.rules = []*big.Int{}
-	for range nr {
-		if wide {
-			s.rules = append(s.rules, p.u128("rule count"))
-		} else {
-			s.rules = append(s.rules, new(big.Int).SetUint64(p.int64be("rule count")))
-		}
 	}
 	return s
 }
@@ -154,6 +156,7 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 	h.k = int(p.byte1("sieve k"))
 	h.e = int(p.byte1("block exponent"))
 	h.cap = p.int32be("step cap")
+	h.ceiling = int(p.int16be("ceiling"))
 	h.lo = p.natural("from")
 	h.hi = p.natural("to")
 	nr := int(p.byte1("rules"))
@@ -169,7 +172,7 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 		}
 		h.rules = append(h.rules, r)
 	}
-	h.tot = p.summaryOf(true)
+	h.tot = p.summaryOf(true, len(h.rules))
 	if p.bad != nil {
 		return nil, p.bad
 	}
@@ -187,7 +190,11 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 	case h.cap <= uint32(h.k) || h.cap > maxCap:
 		return nil, malformed(at+42, "step cap %d: the format allows k+1 = %d to %d", h.cap, h.k+1, maxCap)
 	case h.lo.Cmp(h.hi) >= 0:
-		return nil, malformed(at+46, "the range [%v, %v) is empty", h.lo, h.hi)
+		return nil, malformed(at+48, "the range [%v, %v) is empty", h.lo, h.hi)
+	}
+	if w := minRangeCeiling(h.a, h.b, h.k, h.hi); h.ceiling < max(w, minCeiling) || h.ceiling > maxCeiling {
+		return nil, malformed(at+46, "ceiling %d bits: the format needs %d to %d here (at least bitlen(hi + |b|) + k*bitlen(a) = %d and %d)",
+			h.ceiling, max(w, minCeiling), maxCeiling, w, minCeiling)
 	}
 	h.first = new(big.Int).Rsh(h.lo, uint(h.e))
 	last := new(big.Int).Sub(h.hi, big.NewInt(1))
@@ -195,16 +202,23 @@ func parseRangeHeader(body []byte, records int) (*rangeHeader, *Failure) {
 	if !last.IsInt64() || last.Int64()+1 != int64(records) {
 		return nil, malformed(10, "the preamble declares %d records; [%v, %v) has %v blocks of 2^%d", records, h.lo, h.hi, last.Add(last, big.NewInt(1)), h.e)
 	}
-	if p.bad == nil && len(h.tot.rules) != len(h.rules) {
-		return nil, malformed(int64(preambleLen+p.pos), "%d predecessor rules but %d rule counts in the totals", len(h.rules), len(h.tot.rules))
-	}
 	return h, h.tot.sane(at, "header")
 }
 
-func parseBlock(rec []byte, base int64) (*blockRec, *Failure) {
+// minRangeCeiling is the least ceiling a range over numbers below hi may
+// state: bitlen(hi + |b|) + k*bitlen(a). Every iterate x_i, i <= k, of a
+// number n < hi is below (hi + |b|)*a^i, so below 2^W: the k steps a
+// search jumps over never reach the ceiling.
+func minRangeCeiling(a uint32, b int32, k int, hi *big.Int) int {
+	x := new(big.Int).Add(hi, new(big.Int).Abs(big.NewInt(int64(b))))
+	return x.BitLen() + k*big.NewInt(int64(a)).BitLen()
+}
+
+// parseBlock reads a block record with rules rule counts.
+func parseBlock(rec []byte, base int64, rules int) (*blockRec, *Failure) {
 	p := &fields{b: rec}
 	b := &blockRec{index: p.int32be("block index")}
-	b.sum = p.summaryOf(false)
+	b.sum = p.summaryOf(false, rules)
 	for range p.list("undecided numbers") {
 		b.undecided = append(b.undecided, p.natural("undecided number"))
 	}
@@ -220,8 +234,8 @@ func parseBlock(rec []byte, base int64) (*blockRec, *Failure) {
 	if fl := b.sum.sane(base, "block"); fl != nil {
 		return nil, fl
 	}
-	if int64(len(b.undecided)) != b.sum.counts[4].Int64() || !b.sum.counts[4].IsInt64() {
-		return nil, malformed(base, "the block counts %v undecided numbers and lists %d", b.sum.counts[4], len(b.undecided))
+	if int64(len(b.undecided)) != b.sum.counts[cUndecided].Int64() || !b.sum.counts[cUndecided].IsInt64() {
+		return nil, malformed(base, "the block counts %v undecided numbers and lists %d", b.sum.counts[cUndecided], len(b.undecided))
 	}
 	for i := 1; i < len(b.undecided); i++ {
 		if b.undecided[i-1].Cmp(b.undecided[i]) >= 0 {

@@ -60,13 +60,17 @@ type searcher struct {
 	limHi uint64 // below it (high word of x) a step stays within 128 bits
 	half  uint64 // (a-1)/2
 	inc   int64  // (b+1)/2
+	// joined[i]: for a sieve with joins, bit x says whether survivor x
+	// below stub i, in the order of the codes, is joined.
+	joined [][]uint64
 }
 
-func newSearcher(h *rangeHeader) *searcher {
-	sh := &sieveHeader{a: h.a, b: h.b, k: h.k, j: h.k, cap: h.cap}
+// newSearcher sets up the derivation of the blocks of h; joined holds the
+// join flags of its sieve's chunks below the top, if it has joins.
+func newSearcher(h *rangeHeader, joined [][]uint64) *searcher {
+	sh := &sieveHeader{a: h.a, b: h.b, k: h.k, j: h.k, cap: h.cap, ceiling: h.ceiling}
 	sv := newSieve(sh)
-	sv.work = newMeter()
-	s := &searcher{h: h, sv: sv, k: h.k, d: splitDepth(h.k), half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
+	s := &searcher{h: h, sv: sv, joined: joined, k: h.k, d: splitDepth(h.k), half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
 		limHi: ^uint64(0)/uint64(h.a) - 1}
 	p := big.NewInt(1)
 	for i := 0; i <= h.k; i++ {
@@ -74,7 +78,9 @@ func newSearcher(h *rangeHeader) *searcher {
 		p.Mul(p, sv.A)
 	}
 	s.small = s.smallBound()
-	for _, st := range sv.stubList() { // the classes open at depth d, in trie order
+	// The classes open at depth d, in trie order; the sieve certificate,
+	// checked by now, has a record for each.
+	for _, st := range sv.stubList(1 << 24) {
 		s.stubs = append(s.stubs, st.res)
 	}
 	return s
@@ -146,7 +152,9 @@ type outcome struct {
 }
 
 // decide iterates n from x = T^i(n) until it drops below n, within the
-// cap; past the cap the fate rule of section 1 decides it.
+// cap; an iterate at the ceiling 2^W stops it, undecided; past the cap the
+// fate rule of section 1 decides it. Values below 2^128 never reach the
+// ceiling (W >= 128). Every step is charged to the block's meter.
 func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 	nw := fromBig(n)
 	for ; i <= s.h.cap; i++ {
@@ -157,10 +165,13 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 		} else if x.toBig().Cmp(n) < 0 {
 			return outcome{fate: 1, sigma: i}
 		}
+		if x.big != nil && x.big.BitLen() > s.h.ceiling {
+			return outcome{fate: 3}
+		}
 		if i == s.h.cap {
 			break
 		}
-		if x = s.next(x); x.big != nil && !s.sv.work.charge(x.big) {
+		if x = s.next(x); !s.sv.work.charge(1) {
 			return outcome{fate: 3}
 		}
 	}
@@ -192,7 +203,7 @@ func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 // tallies accumulates what one part of a block finds; offsets are from the
 // block's first number x0.
 type tallies struct {
-	counts   [5]uint64
+	counts   [nCounts]uint64
 	rules    []uint64 // numbers justified by each predecessor rule
 	sum      *big.Int
 	maxSigma uint32
@@ -241,7 +252,7 @@ func (t *tallies) note(off uint64, r outcome, rule int) {
 	case 1:
 		t.drop(off, r.sigma, rule)
 	case 2:
-		t.counts[3]++
+		t.counts[cCycle]++
 		key := r.cycleMin.String()
 		if c := t.cycles[key]; c != nil {
 			c.count.Add(c.count, big.NewInt(1))
@@ -249,7 +260,7 @@ func (t *tallies) note(off uint64, r outcome, rule int) {
 			t.cycles[key] = &cycleCount{min: r.cycleMin, count: big.NewInt(1)}
 		}
 	default:
-		t.counts[4]++
+		t.counts[cUndecided]++
 		if len(t.undec) <= maxList {
 			t.undec = append(t.undec, off)
 		}
@@ -265,6 +276,8 @@ type part struct {
 	fast     bool
 	from, to uint64
 	t        *tallies
+	joined   []uint64 // the join flags of the stub's survivors, if any
+	surv     int      // survivors visited so far, in the order of the codes
 }
 
 // inClass returns how many offsets of [from, to) are congruent to res mod
@@ -300,7 +313,7 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 		if vc.parity() == 0 && s.sv.closesAt(t+1, odd) {
 			cls := res | c<<t
 			if n, first := p.inClass(cls, t+1); n > 0 {
-				p.t.counts[0] += n
+				p.t.counts[cSieve] += n
 				p.t.sum.Add(p.t.sum, new(big.Int).Mul(new(big.Int).SetUint64(n), big.NewInt(int64(t+1))))
 				if f, ok := p.t.firstAt[t+1]; !ok || first < f {
 					p.t.firstAt[t+1] = first
@@ -317,13 +330,20 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 // T^k(n) = a^s*q + T^k(res).
 func (p *part) survivor(res uint64, odd int, tk wide) {
 	s := p.s
-	if p.t.counts[4] > maxList {
+	x := p.surv
+	p.surv++
+	if p.t.counts[cUndecided] > maxList || s.sv.work.exceeded() {
 		p.stop.Store(true)
 	}
 	if p.stop.Load() {
 		return
 	}
 	n, off := p.inClass(res, s.k)
+	if p.joined != nil && p.joined[x/64]>>(x%64)&1 == 1 {
+		// Every member above N0 meets a smaller number after k steps.
+		p.t.counts[cJoin] += n
+		return
+	}
 	if p.fast && tk.big == nil && s.pow[odd].BitLen() <= 64 {
 		m := s.pow[odd].Uint64()
 		for ; n > 0; n, off = n-1, off+1<<s.k {
@@ -339,14 +359,15 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 			h, c2 := bits.Add64(h, tk.hi, c)
 			if c2 == 0 {
 				if sigma, ok := s.drop(num, h, l, uint32(s.k)); ok {
-					p.t.note(off, outcome{fate: 1, sigma: sigma}, 1)
+					s.sv.work.charge(int64(sigma) - int64(s.k))
+					p.t.note(off, outcome{fate: 1, sigma: sigma}, cSearch)
 					continue
 				}
 			}
 			nb := new(big.Int).SetUint64(num)
 			x := new(big.Int).Rsh(nb, uint(s.k))
 			x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
-			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), 1)
+			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), cSearch)
 		}
 		return
 	}
@@ -358,7 +379,7 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		}
 		x := new(big.Int).Rsh(num, uint(s.k))
 		x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
-		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), 1)
+		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), cSearch)
 	}
 }
 
@@ -386,9 +407,9 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	stop := new(atomic.Bool)
 	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.rules)), stop: stop}}
 	small := parts[0]
-	for off := small.from; off < small.to && small.t.counts[4] <= maxList; off++ {
+	for off := small.from; off < small.to && small.t.counts[cUndecided] <= maxList && !s.sv.work.exceeded(); off++ {
 		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
-		small.t.note(off, s.decide(n, fromBig(n), 0), 2)
+		small.t.note(off, s.decide(n, fromBig(n), 0), cSmall)
 	}
 	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), stop: stop}
 	parts = append(parts, top)
@@ -397,8 +418,11 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 	sem := make(chan struct{}, max(workers, 1))
 	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
 	fast := end.BitLen() <= 64
-	for _, res := range s.stubs {
+	for si, res := range s.stubs {
 		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), fast: fast, stop: stop}
+		if s.joined != nil {
+			p.joined = s.joined[si]
+		}
 		if fast {
 			p.x0u = x0.Uint64()
 		}
@@ -423,7 +447,7 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 	b := &blockRec{index: index}
 	sum := &b.sum
-	var counts [5]uint64
+	var counts [nCounts]uint64
 	var rules []uint64
 	total := new(big.Int)
 	var pts []offPoint

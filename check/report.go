@@ -3,7 +3,6 @@ package check
 import (
 	"bytes"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"math/big"
 	"runtime"
@@ -13,22 +12,12 @@ import (
 	"strings"
 )
 
-// The two ways a certificate fails. Callers branch on them with errors.Is:
-// a malformed or unreadable file is a usage problem (exit 2), an invalid
-// one is a certificate that does not prove what it says (exit 1).
-var (
-	ErrMalformed = errors.New("malformed")
-	ErrInvalid   = errors.New("invalid")
-	// ErrLimits: the certificate asks for more work than the checker
-	// allows; it is neither shown valid nor shown invalid (exit 2).
-	ErrLimits = errors.New("beyond limits")
-)
-
 // Failure is the first thing found wrong, with where it was found.
 type Failure struct {
-	Class  error  // ErrMalformed, ErrInvalid or ErrLimits
+	Class  error  // ErrMalformed, ErrInvalid, ErrLimits or ErrUsage
 	Reason string // a stable code, listed in Reasons
 	Msg    string
+	Hint   string // for the reader's own mistakes: what to do instead
 	Where  Where
 }
 
@@ -40,29 +29,6 @@ func (f *Failure) Error() string {
 }
 
 func (f *Failure) Unwrap() error { return f.Class }
-
-// Reasons lists every failure code with what it means.
-var Reasons = map[string]string{
-	"unreadable":       "the file cannot be opened or read",
-	"malformed":        "the bytes do not follow the format",
-	"limits":           "the certificate asks for more work than this checker allows",
-	"hash":             "a record or the header does not match its hash in the stored tree",
-	"tree":             "a stored inner hash does not match its children",
-	"root":             "the root is not the expected one",
-	"residue":          "a chunk covers another class than the one its position calls for",
-	"depth":            "the trie codes end early or go on past their depth",
-	"closed-early":     "a class is claimed to close at a step where it has not closed yet",
-	"closed-odd":       "a class is claimed to close at a step it takes odd, where no class closes",
-	"closed-late":      "a class that closes at a step is claimed to stay open",
-	"survivor-dropped": "a survivor is claimed to close",
-	"count":            "a count in the header differs from the count the claims give",
-	"exception":        "an exception is missing, invented, or has the wrong fate",
-	"join":             "a joined survivor's partner is not a smaller residue with the same odd steps and value after k steps",
-	"sieve":            "the sieve certificate a range rests on is missing, invalid, or another one",
-	"rule":             "a predecessor rule is false for some q, or its predecessor is not smaller",
-	"audit":            "a part, with its audit path, does not lead to the given root",
-	"block":            "a block of a range does not match its re-derivation",
-}
 
 // Where locates a failure. Zero fields are unknown or do not apply.
 type Where struct {
@@ -152,6 +118,7 @@ type Report struct {
 	K         int
 	J         int
 	Cap       uint32
+	Ceiling   int // W, in bits: an iterate of 2^W or more stops a search or fate, undecided
 	Chunks    int
 	Survivors Num // a sieve with joins: the survivors not joined, still to search
 	// A sieve with joins: the survivors joined to smaller residues, and all
@@ -187,6 +154,7 @@ type Report struct {
 
 	Reason string
 	Error  string
+	Hint   string // for the reader's own mistakes: what to do instead
 	Where  *Where
 
 	failure *Failure
@@ -202,14 +170,14 @@ func (r *Report) Err() error {
 
 func (r *Report) fail(f *Failure) *Report {
 	r.Valid, r.failure = false, f
-	r.Reason, r.Error = f.Reason, f.Error()
+	r.Reason, r.Error, r.Hint = f.Reason, f.Error(), f.Hint
 	w := f.Where
 	r.Where = &w
 	return r
 }
 
 func malformed(off int64, format string, args ...any) *Failure {
-	return &Failure{Class: ErrMalformed, Reason: "malformed", Msg: fmt.Sprintf(format, args...), Where: Where{Offset: &off}}
+	return &Failure{Class: ErrMalformed, Reason: ReasonMalformed, Msg: fmt.Sprintf(format, args...), Where: Where{Offset: &off}}
 }
 
 func invalid(reason string, w Where, format string, args ...any) *Failure {
@@ -219,6 +187,7 @@ func invalid(reason string, w Where, format string, args ...any) *Failure {
 // RangeCounts says how the numbers of a range are justified.
 type RangeCounts struct {
 	Sieve     Num `json:"sieve"`     // in a closing class: T^t(n) < n, t the stopping time
+	Join      Num `json:"join"`      // in a joined class: meets n - delta after k steps
 	Search    Num `json:"search"`    // in a survivor class, found to drop by iteration
 	Small     Num `json:"small"`     // at most the small bound, found to drop by direct iteration
 	Cycle     Num `json:"cycle"`     // reach a cycle without dropping
@@ -502,6 +471,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 	type failure struct {
 		Reason string `json:"reason,omitempty"`
 		Error  string `json:"error,omitempty"`
+		Hint   string `json:"hint,omitempty"`
 		Where  *Where `json:"where,omitempty"`
 	}
 	type words struct {
@@ -513,7 +483,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		v, p := r.Valid, r.Partial
 		c.Valid, c.Partial = &v, &p
 	}
-	f := failure{r.Reason, r.Error, r.Where}
+	f := failure{r.Reason, r.Error, r.Hint, r.Where}
 	w := words{r.Claim, r.NotProven}
 	if r.Kind == "range" || r.Kind == "range shard" {
 		var st *statedStoppingTimes
@@ -529,6 +499,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 			K         int                  `json:"k"`
 			BlockExp  int                  `json:"block_exponent"`
 			Cap       uint32               `json:"cap"`
+			Ceiling   int                  `json:"ceiling"`
 			Blocks    int                  `json:"blocks"`
 			Counts    *RangeCounts         `json:"counts"`
 			Stated    *statedStoppingTimes `json:"stated_stopping_times"`
@@ -541,7 +512,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 			BytesRead int64                `json:"bytes_read,omitempty"`
 			words
 			failure
-		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Chunks, r.Counts, st,
+		}{c, r.SieveRoot, r.From, r.To, r.K, r.BlockExp, r.Cap, r.Ceiling, r.Chunks, r.Counts, st,
 			orEmpty(r.Cycles), orEmpty(r.Undecided), r.Below, r.Audit, r.Shard, r.Span, r.BytesRead, w, f})
 	}
 	return marshal(struct {
@@ -549,6 +520,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		K          int               `json:"k,omitempty"`
 		J          int               `json:"j,omitempty"`
 		Cap        uint32            `json:"cap,omitempty"`
+		Ceiling    int               `json:"ceiling,omitempty"`
 		Chunks     int               `json:"chunks,omitempty"`
 		Survivors  Num               `json:"survivors,omitempty"`
 		Joined     Num               `json:"joined,omitempty"`
@@ -560,7 +532,7 @@ func (r *Report) MarshalJSON() ([]byte, error) {
 		BytesRead  int64             `json:"bytes_read,omitempty"`
 		words
 		failure
-	}{c, r.K, r.J, r.Cap, r.Chunks, r.Survivors, r.Joined, r.SieveSurvivors, stepCounts(r.ClosedAt), orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, w, f})
+	}{c, r.K, r.J, r.Cap, r.Ceiling, r.Chunks, r.Survivors, r.Joined, r.SieveSurvivors, stepCounts(r.ClosedAt), orEmpty(r.Exceptions), r.Shard, r.Span, r.BytesRead, w, f})
 }
 
 // marshal writes JSON without escaping <, > and &, which the claims use

@@ -35,14 +35,14 @@ func proveRules(h *rangeHeader) *Failure {
 		where := Where{Claim: fmt.Sprintf("rule %d: %v", i, r)}
 		if r.mp > r.m || r.cp >= r.c || r.cp < 1 || r.mp < 1 {
 			where.Expected, where.Found = "a predecessor below n for every q >= 0", fmt.Sprintf("M' = %d, c' = %d against M = %d, c = %d", r.mp, r.cp, r.m, r.c)
-			return invalid("rule", where, "rule %d (%v): the predecessor must be positive and smaller for every q >= 0, which needs M' <= M, 1 <= c' < c", i, r)
+			return invalid(ReasonRule, where, "rule %d (%v): the predecessor must be positive and smaller for every q >= 0, which needs M' <= M, 1 <= c' < c", i, r)
 		}
 		A, B := new(big.Int).SetUint64(r.mp), new(big.Int).SetUint64(r.cp)
 		for t := 1; t <= r.steps; t++ {
 			if A.Bit(0) == 1 {
 				where.Step = t
 				where.Expected, where.Found = "a parity fixed by the class", fmt.Sprintf("%v*q + %v", A, B)
-				return invalid("rule", where, "rule %d (%v): before step %d the predecessor's value is %v*q + %v, whose parity depends on q", i, r, t, A, B)
+				return invalid(ReasonRule, where, "rule %d (%v): before step %d the predecessor's value is %v*q + %v, whose parity depends on q", i, r, t, A, B)
 			}
 			if B.Bit(0) == 1 {
 				A.Mul(A, a)
@@ -54,7 +54,7 @@ func proveRules(h *rangeHeader) *Failure {
 		M, C := new(big.Int).SetUint64(r.m), new(big.Int).SetUint64(r.c)
 		if A.Cmp(M) != 0 || B.Cmp(C) != 0 {
 			where.Expected, where.Found = fmt.Sprintf("%v*q + %v", M, C), fmt.Sprintf("%v*q + %v", A, B)
-			return invalid("rule", where, "rule %d (%v): after %d steps the predecessor is %v*q + %v, not %v*q + %v", i, r, r.steps, A, B, M, C)
+			return invalid(ReasonRule, where, "rule %d (%v): after %d steps the predecessor is %v*q + %v, not %v*q + %v", i, r, r.steps, A, B, M, C)
 		}
 	}
 	return nil

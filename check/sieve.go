@@ -24,7 +24,10 @@ type sieve struct {
 	A, B    *big.Int
 	name    string
 	useMemo bool
-	work    *meter
+	work    *meter // a range block's derivation: the steps its counts allow
+	// keepJoins keeps each chunk's join flags (walk.flags), for a range
+	// that rests on this sieve.
+	keepJoins bool
 }
 
 func newSieve(h *sieveHeader) *sieve {
@@ -84,6 +87,7 @@ type walk struct {
 	found     []uint64 // the survivors, in the order of the codes
 	rest      []byte   // the record's bytes after the codes: a join section
 	joined    uint64
+	flags     []uint64 // with keepJoins: bit x says survivor x is joined
 	fail      *Failure
 }
 
@@ -113,8 +117,7 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		}
 		x, ok := w.bit()
 		if !ok {
-			w.fail = invalid("depth", w.where(res, t, "", "", ""),
-				"the codes end at an open class of depth %d, above depth %d", t, w.end)
+			w.fail = malformed(w.at, "chunk %d: the trie codes end at the open class %d mod 2^%d, above depth %d", w.chunk, res, t, w.end)
 			return false
 		}
 		even := v & 1               // the child whose step t+1 is even
@@ -122,7 +125,7 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		if x == 0 {
 			if shut {
 				c := res | even<<t
-				w.fail = invalid("closed-late", w.where(c, t+1, fmt.Sprintf("open after step %d", t+1), "closed", "open"),
+				w.fail = invalid(ReasonMissedClosing, w.where(c, t+1, fmt.Sprintf("open after step %d", t+1), "closed", "open"),
 					"the class closes at step %d (%s < 2^%d) but is claimed open", t+1, sv.power(s), t+1)
 				return false
 			}
@@ -137,7 +140,7 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		}
 		y, ok := w.bit()
 		if !ok {
-			w.fail = invalid("depth", w.where(res, t, "", "", ""), "the codes end inside the code of this class")
+			w.fail = malformed(w.at, "chunk %d: the trie codes end inside the code of class %d mod 2^%d", w.chunk, res, t)
 			return false
 		}
 		if y != even || !shut {
@@ -167,7 +170,7 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 	// never by what the codes claim: a short top chunk may describe
 	// millions of open classes.
 	if len(w.stubs) == w.maxStubs {
-		w.fail = invalid("count", w.where(res, t, "chunks", strconv.Itoa(w.maxStubs+1), "more"),
+		w.fail = invalid(ReasonCount, w.where(res, t, "chunks", strconv.Itoa(w.maxStubs+1), "more"),
 			"the top of the trie has more than the %d classes open at depth %d that the header's %d chunks allow", w.maxStubs, t, w.maxStubs+1)
 		return false
 	}
@@ -182,14 +185,14 @@ func (w *walk) falseClosing(c uint64, t, s int, oddStep bool) *Failure {
 	claim := fmt.Sprintf("closes at step %d", t)
 	switch {
 	case oddStep:
-		return invalid("closed-odd", w.where(c, t, claim, "open", "closed"),
+		return invalid(ReasonFalseClosing, w.where(c, t, claim, "open", "closed"),
 			"step %d of this class is odd under %s, so it has %d odd steps and %s > 2^%d; it does not close there",
 			t, sv.name, s+1, sv.power(s+1), t)
 	case t == sv.j:
-		return invalid("survivor-dropped", w.where(c, t, claim, "survivor", "closed"),
+		return invalid(ReasonFalseClosing, w.where(c, t, claim, "survivor", "closed"),
 			"the class survives all %d steps: it has %d odd steps and %s >= 2^%d", t, s, sv.power(s), t)
 	}
-	return invalid("closed-early", w.where(c, t, claim, "open", "closed"),
+	return invalid(ReasonFalseClosing, w.where(c, t, claim, "open", "closed"),
 		"after %d steps the class has %d odd steps and %s >= 2^%d; it has not closed yet", t, s, sv.power(s), t)
 }
 
@@ -228,15 +231,76 @@ func (sv *sieve) depths(w *walk) *Failure {
 	}
 	if w.begin != from || w.end != to {
 		c := w.chunk
-		return invalid("depth", Where{Chunk: &c, Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", w.begin, w.end)},
+		return invalid(ReasonChunkSpan, Where{Chunk: &c, Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", w.begin, w.end)},
 			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", w.begin, w.end, sv.j, sv.d, from, to)
 	}
 	return nil
 }
 
 // checkChunk verifies chunk record i; want is the stub it must start at
-// (nil for the top chunk).
+// (nil for the top chunk). The record is decoded before it is judged
+// (SPEC.md, section 3): a false claim found by the walk is reported only
+// if the record's codes and join section follow the grammar, else the
+// record is malformed.
 func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *memo, maxStubs int) (*walk, *Failure) {
+	w, fl := sv.judgeChunk(i, rec, want, base, m, maxStubs)
+	if fl != nil && fl.Class == ErrInvalid {
+		if g := sv.grammar(i, rec, base); g != nil {
+			return nil, g
+		}
+	}
+	return w, fl
+}
+
+// grammar decodes chunk record i without judging it: its head, its codes,
+// which must describe a trie from its own depth "from" to "to" and be
+// used exactly, and its join section.
+func (sv *sieve) grammar(i int, rec []byte, base int64) *Failure {
+	w, fl := sv.frame(i, rec, base)
+	if fl != nil {
+		return fl
+	}
+	if i == 0 && len(w.rest) > 0 {
+		return malformed(base+int64(len(rec)-len(w.rest)), "the top chunk has %d bytes after its codes; only chunks with survivors have joins", len(w.rest))
+	}
+	var leaves uint64
+	var parse func(t int) bool
+	parse = func(t int) bool {
+		for t < w.end {
+			x, ok := w.bit()
+			if !ok {
+				return false
+			}
+			if x == 0 {
+				if !parse(t + 1) {
+					return false
+				}
+			} else if _, ok := w.bit(); !ok {
+				return false
+			}
+			t++
+		}
+		leaves++
+		return true
+	}
+	if !parse(w.begin) {
+		return malformed(base, "chunk %d: the trie codes end above depth %d", i, w.end)
+	}
+	if w.pos != w.nbit {
+		return malformed(base+chunkHead, "chunk %d: %d code bits are left after the last class of depth %d", i, w.nbit-w.pos, w.end)
+	}
+	if i > 0 && sv.h.joins {
+		if leaves > maxJoinSurvivors {
+			return malformed(base, "chunk %d has more than %d survivors, the most a chunk of a sieve with joins may hold", i, maxJoinSurvivors)
+		}
+		if _, _, fl := readJoins(w.rest, int(leaves), i, base+int64(len(rec)-len(w.rest))); fl != nil {
+			return fl
+		}
+	}
+	return nil
+}
+
+func (sv *sieve) judgeChunk(i int, rec []byte, want *stubState, base int64, m *memo, maxStubs int) (*walk, *Failure) {
 	w, fl := sv.frame(i, rec, base)
 	if fl != nil {
 		return nil, fl
@@ -257,7 +321,7 @@ func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *m
 			w.found = make([]uint64, 0, min(w.nbit+1, 1<<20)) // a trie has at most one leaf per code bit, plus one
 		}
 		if w.start != want.res {
-			return nil, invalid("residue", w.where(w.start, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(w.start, 10)),
+			return nil, invalid(ReasonChunkStart, w.where(w.start, sv.d, "chunk covers this class", strconv.FormatUint(want.res, 10), strconv.FormatUint(w.start, 10)),
 				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.res, sv.d, i, sv.d)
 		}
 		start = *want
@@ -266,8 +330,7 @@ func (sv *sieve) checkChunk(i int, rec []byte, want *stubState, base int64, m *m
 		return nil, w.fail
 	}
 	if w.pos != w.nbit {
-		return nil, invalid("depth", w.where(start.res, w.begin, "", "", ""),
-			"%d code bits are left after the last class of depth %d", w.nbit-w.pos, w.end)
+		return nil, malformed(base+chunkHead, "chunk %d: %d code bits are left after the last class of depth %d", i, w.nbit-w.pos, w.end)
 	}
 	if w.collect {
 		if fl := sv.checkJoins(w, base+int64(len(rec)-len(w.rest))); fl != nil {

@@ -32,11 +32,17 @@ import (
 // residues.
 const ExhaustiveJoins = 20
 
+// joinKey is the state of a residue after k steps: odd steps and value.
+type joinKey struct {
+	s int
+	v uint64
+}
+
 // joinFinder knows, for each survivor, its partner if it has one.
 type joinFinder struct {
 	r       *rules
-	partner map[uint64]uint64 // exhaustive: (s, T^k) key -> smallest residue
-	maxD    int64             // pairLive follows |D| up to this; -1: never
+	partner map[joinKey]uint64 // exhaustive: (s, T^k) -> smallest residue
+	maxD    int64              // pairLive follows |D| up to this; -1: never
 }
 
 func newJoinFinder(r *rules) (*joinFinder, error) {
@@ -54,11 +60,11 @@ func newJoinFinder(r *rules) (*joinFinder, error) {
 		f.maxD = (1 << 60) / int64(r.a)
 	}
 	if r.k <= ExhaustiveJoins {
-		f.partner = map[uint64]uint64{}
+		f.partner = map[joinKey]uint64{}
 		var all func(t, s int, v, res uint64)
 		all = func(t, s int, v, res uint64) {
 			if t == r.k {
-				key := uint64(s)<<58 | v
+				key := joinKey{s, v}
 				if m, ok := f.partner[key]; !ok || res < m {
 					f.partner[key] = res
 				}
@@ -143,8 +149,8 @@ func (f *joinFinder) exhaustive(jw *cert.JoinWriter, res uint64, d int) {
 	var walk func(t, s int, v, res uint64)
 	walk = func(t, s int, v, res uint64) {
 		if t == r.k {
-			if m := f.partner[uint64(s)<<58|v]; m < res {
-				jw.Join(int64(res - m))
+			if m, ok := f.partner[joinKey{s, v}]; ok && m < res {
+				jw.Join(res - m)
 			} else {
 				jw.Keep()
 			}
@@ -313,4 +319,51 @@ func (r *rules) step64(v uint64, s int) (uint64, int) {
 		return v >> 1, s
 	}
 	return (r.a*v + r.b) >> 1, s + 1
+}
+
+// joinFlags lists, for each stub of a sieve with joins, which of its
+// survivors the sieve's writer joins, one bit per survivor in the order of
+// the codes: the flags a range on that sieve needs (SPEC.md, section 6).
+func (r *rules) joinFlags(ctx context.Context, workers int) ([][]uint64, error) {
+	f, err := newJoinFinder(r)
+	if err != nil {
+		return nil, err
+	}
+	d := cert.SplitDepth(r.j)
+	levels := min(bottomLevels, r.j-d)
+	table := buildBottom(r, levels)
+	var stubs []stub
+	gen := encoder{r: r, end: d, tb: -1, tally: newTally(r.j)}
+	gen.stub = func(res uint64, s int, v uint64) error { stubs = append(stubs, stub{res: res, s: s, v: v}); return nil }
+	if err := gen.top(0, 0, 0, 0); err != nil {
+		return nil, err
+	}
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	out := make([][]uint64, len(stubs))
+	g, ctx := errgroup.WithContext(ctx)
+	g.SetLimit(workers)
+	for i, st := range stubs {
+		g.Go(func() error {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+			e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
+			jw := f.chunk(&e, st, d)
+			js, err := cert.ParseJoins(jw.AppendTo(nil), int(e.tally.open), 0)
+			if err != nil {
+				return err
+			}
+			bits := make([]uint64, (len(js.Joined)+63)/64)
+			for x, j := range js.Joined {
+				if j {
+					bits[x/64] |= 1 << (x % 64)
+				}
+			}
+			out[i] = bits
+			return nil
+		})
+	}
+	return out, g.Wait()
 }

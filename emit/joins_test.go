@@ -38,7 +38,7 @@ func TestJoinSectionsAreTheJoins(t *testing.T) {
 			continue
 		}
 		listed++
-		p := uint64(int64(r) - deltas[i])
+		p := r - deltas[i]
 		require.Less(t, p, r)
 		s1, v1 := exactK(r, 14)
 		s2, v2 := exactK(p, 14)
@@ -62,14 +62,14 @@ func exactK(x uint64, k int) (uint64, uint64) {
 
 // sections reads a sieve with joins: its survivors in order, and for each
 // the delta of its join (0 for none).
-func sections(t testing.TB, file []byte) (*cert.SieveHeader, []uint64, []int64) {
+func sections(t testing.TB, file []byte) (*cert.SieveHeader, []uint64, []uint64) {
 	t.Helper()
 	rd, err := cert.NewReader(bytes.NewReader(file))
 	require.NoError(t, err)
 	h, err := cert.ParseSieveHeader(rd.Header)
 	require.NoError(t, err)
 	var survivors []uint64
-	var deltas []int64
+	var deltas []uint64
 	for i := 0; ; i++ {
 		rec, err := rd.Next()
 		if err != nil {

@@ -79,8 +79,8 @@ func (e *JournalConflictError) Unwrap() error { return errJournalParams }
 
 func journalDigest(p RangeParams, sh *Shard) []byte {
 	d, _ := blake2b.New256(nil)
-	fmt.Fprintf(d, "descent range journal v1\x00%x\x00%v\x00%v\x00%v\x00%d\x00%d",
-		p.SieveRoot[:], p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap)
+	fmt.Fprintf(d, "descent range journal v2\x00%x\x00%v\x00%v\x00%v\x00%d\x00%d\x00%d",
+		p.SieveRoot[:], p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap, p.Ceiling)
 	if sh != nil {
 		fmt.Fprintf(d, "\x00shard %d/%d", sh.I, sh.N)
 	}
@@ -93,8 +93,8 @@ func journalDigest(p RangeParams, sh *Shard) []byte {
 // journalWords describes the parameters for a person who finds the
 // journal of another run.
 func journalWords(p RangeParams, sh *Shard) string {
-	s := fmt.Sprintf("map %v, from %v to %v, blocks of 2^%d, cap %d, %d predecessor rules, sieve root %x",
-		p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap, len(p.Rules), p.SieveRoot[:])
+	s := fmt.Sprintf("map %v, from %v to %v, blocks of 2^%d, cap %d, ceiling 2^%d, %d predecessor rules, sieve root %x",
+		p.Sieve.Map, p.Lo, p.Hi, p.E, p.Cap, p.Ceiling, len(p.Rules), p.SieveRoot[:])
 	if sh != nil {
 		s += fmt.Sprintf(", shard %d/%d", sh.I, sh.N)
 	}
@@ -114,7 +114,8 @@ type journalFile struct {
 	v1     bool
 }
 
-func parseJournal(data []byte) (*journalFile, bool) {
+// parseJournal reads a journal whose blocks carry rules rule counts.
+func parseJournal(data []byte, rules int) (*journalFile, bool) {
 	jf := &journalFile{}
 	pos := len(journalMagic) + blake2b.Size256
 	switch {
@@ -154,7 +155,7 @@ func parseJournal(data []byte) (*journalFile, bool) {
 			break // cut short by a crash
 		}
 		rec := data[pos+4 : pos+4+int(n)]
-		if _, err := cert.ParseBlock(rec, 0); err != nil {
+		if _, err := cert.ParseBlock(rec, 0, rules); err != nil {
 			break
 		}
 		jf.recs = append(jf.recs, rec)
@@ -200,7 +201,7 @@ func OpenJournal(path string, p RangeParams, sh *Shard) (*Journal, [][]byte, err
 		return nil, nil, err
 	}
 	if len(data) > 0 {
-		jf, ok := parseJournal(data)
+		jf, ok := parseJournal(data, len(p.Rules))
 		switch {
 		case !ok:
 			f.Close()

@@ -54,7 +54,7 @@ func TestJournalOfAFailedRunBlocksNoOtherRun(t *testing.T) {
 	require.ErrorAs(t, err, &conflict)
 	require.True(t, errors.Is(err, errJournalParams))
 	require.Equal(t, 3, conflict.Blocks)
-	require.Equal(t, "map 3n+1, from 1 to 1048576, blocks of 2^14, cap 100000, 0 predecessor rules, sieve root "+sres.Root.String(), conflict.Run)
+	require.Equal(t, "map 3n+1, from 1 to 1048576, blocks of 2^14, cap 100000, ceiling 2^128, 0 predecessor rules, sieve root "+sres.Root.String(), conflict.Run)
 	after, err := os.ReadFile(path)
 	require.NoError(t, err)
 	require.Equal(t, before, after, "a refused run changed the journal")

@@ -23,6 +23,9 @@ type RangeParams struct {
 	Lo, Hi    *big.Int
 	E         int
 	Cap       uint32
+	// Ceiling is W, in bits: the search of a number stops, undecided, at
+	// an iterate of 2^W or more. 0 picks cert.DefaultRangeCeiling.
+	Ceiling int
 	// Rules are predecessor rules (SPEC.md, section 9), tried in order on
 	// the numbers of survivor classes before any search.
 	Rules []cert.Rule
@@ -71,6 +74,9 @@ func NormalizeRange(p *RangeParams) error {
 	if p.Cap == 0 {
 		p.Cap = DefaultRangeCap
 	}
+	if p.Ceiling == 0 && p.Hi != nil && p.Hi.Sign() > 0 {
+		p.Ceiling = cert.DefaultRangeCeiling(h.Map, h.K, p.Hi)
+	}
 	switch {
 	case p.E < h.K || p.E > cert.MaxBlockExp:
 		return fmt.Errorf("block exponent %d: want %d (the sieve's k) to %d", p.E, h.K, cert.MaxBlockExp)
@@ -80,6 +86,10 @@ func NormalizeRange(p *RangeParams) error {
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", p.Lo, p.Hi)
 	case p.Hi.BitLen() > 8*cert.MaxNatBytes:
 		return fmt.Errorf("to = %v: the format carries numbers of at most %d bits", p.Hi, 8*cert.MaxNatBytes)
+	}
+	if w := cert.RangeMinCeiling(h.Map, h.K, p.Hi); p.Ceiling < max(w, cert.MinCeiling) || p.Ceiling > cert.MaxCeiling {
+		return fmt.Errorf("ceiling %d bits: want %d to %d for this map, k and range (an iterate within the k steps the search jumps must stay below 2^W)",
+			p.Ceiling, max(w, cert.MinCeiling), cert.MaxCeiling)
 	}
 	if _, n := cert.BlockSpan(p.Lo, p.Hi, p.E); !n.IsInt64() || n.Int64() > cert.MaxRecords {
 		return fmt.Errorf("the range has %v blocks of 2^%d; the format allows %d: use a larger -block", n, p.E, cert.MaxRecords)
@@ -102,13 +112,13 @@ func NormalizeRange(p *RangeParams) error {
 // makes sure its root is root: a range certificate may only name the one
 // canonical, true sieve for its map and k.
 func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) error {
-	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap}, Options{Workers: workers})
+	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Joins: h.Joins}, Options{Workers: workers})
 	if err != nil {
 		return err
 	}
 	if res.Root != root {
-		return fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d",
-			root, res.Root, h.Map, h.K, h.J, h.Cap)
+		return fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d, ceiling %d",
+			root, res.Root, h.Map, h.K, h.J, h.Cap, h.Ceiling)
 	}
 	return nil
 }
@@ -126,6 +136,9 @@ type ranger struct {
 	inc   []uint64 // 2^k mod each rule's modulus
 	stubs []uint64 // residues of the classes open at depth d, in trie order
 	first *big.Int // index of the first block
+	// joined[i]: for a sieve with joins, bit x says whether survivor x
+	// below stub i (in the order of the codes) is joined.
+	joined [][]uint64
 }
 
 // Range searches [Lo, Hi) and writes the range certificate to w.
@@ -138,6 +151,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		return nil, err
 	}
 	r.work = newMeter(ctx)
+	r.ceiling = p.Ceiling
 	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
 	for _, rule := range p.Rules {
 		g.inc = append(g.inc, new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(r.k)), new(big.Int).SetUint64(rule.M)).Uint64())
@@ -146,6 +160,11 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
 	if err := gen.top(0, 0, 0, 0); err != nil {
 		return nil, err
+	}
+	if p.Sieve.Joins {
+		if g.joined, err = r.joinFlags(ctx, o.Workers); err != nil {
+			return nil, err
+		}
 	}
 	first, nblocks := cert.BlockSpan(p.Lo, p.Hi, p.E)
 	g.first = first
@@ -178,7 +197,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	for i := from; i < upto; i++ {
 		var b *cert.Block
 		if i-from < len(o.Done) {
-			if b, err = cert.ParseBlock(o.Done[i-from], 0); err != nil || b.Index != uint32(i) || len(b.Rules) != len(p.Rules) {
+			if b, err = cert.ParseBlock(o.Done[i-from], 0, len(p.Rules)); err != nil || b.Index != uint32(i) {
 				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged or of another run: %v", i, err)
 			}
 			recs = append(recs, o.Done[i-from])
@@ -228,13 +247,13 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 }
 
 func rangeHeader(r *rules, p RangeParams, blocks int, t cert.Summary) *cert.RangeHeader {
-	return &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap,
+	return &cert.RangeHeader{Map: r.m, SieveRoot: p.SieveRoot, K: r.k, E: p.E, Cap: p.Cap, Ceiling: p.Ceiling,
 		Lo: p.Lo, Hi: p.Hi, Rules: append([]cert.Rule{}, p.Rules...), Blocks: blocks, Totals: t}
 }
 
 func zeroSummary(rules int) cert.Summary {
 	z := func() *big.Int { return new(big.Int) }
-	s := cert.Summary{Sieve: z(), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z(), Rules: []*big.Int{}}
+	s := cert.Summary{Sieve: z(), Join: z(), Search: z(), Small: z(), Cycle: z(), Undecided: z(), SigmaSum: z(), Rules: []*big.Int{}}
 	for range rules {
 		s.Rules = append(s.Rules, z())
 	}
@@ -275,6 +294,8 @@ type unit struct {
 	offs     []uint64  // and their offsets
 	x0mod    []uint64  // x0 mod each rule's modulus
 	rem      []uint64  // the current number mod each rule's modulus
+	joined   []uint64  // the join flags of the stub's survivors, if any
+	surv     int       // survivors visited so far, in the order of the codes
 }
 
 // ruleStart sets the rule residues for the number at offset off.
@@ -333,6 +354,9 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 	stubs := make([]*unit, len(g.stubs))
 	for s := range g.stubs {
 		stubs[s] = newUnit(split, to)
+		if g.joined != nil {
+			stubs[s].joined = g.joined[s]
+		}
 	}
 
 	eg, ectx := errgroup.WithContext(ctx)
@@ -396,6 +420,14 @@ func (u *unit) closed(res uint64, t int) {
 // jumping k steps at once: T^k(2^k*q + res) = a^s*q + T^k(res).
 func (u *unit) survivor(res uint64, s int, tk exact) {
 	n, off := members(res, u.g.k, u.from, u.to)
+	x := u.surv
+	u.surv++
+	if u.joined != nil && u.joined[x/64]>>(x%64)&1 == 1 {
+		// A joined class: every member above N0 meets a smaller number
+		// after k steps (SPEC.md, section 6).
+		u.acc.count[cJoin] += n
+		return
+	}
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
 	rules := len(u.g.p.Rules) > 0
 	if rules {
@@ -483,6 +515,7 @@ func (u *unit) smallNumbers() {
 
 const (
 	cSieve = iota
+	cJoin
 	cSearch
 	cSmall
 	cCycle
@@ -491,7 +524,7 @@ const (
 
 // acc accumulates a summary over offsets within one block.
 type acc struct {
-	count    [5]uint64
+	count    [6]uint64
 	rules    []uint64 // numbers justified by each predecessor rule
 	sum      u128
 	maxSigma uint32
@@ -607,7 +640,7 @@ func merge(index uint32, x0 *big.Int, units []*unit) (*cert.Block, error) {
 	abs := func(off uint64) *big.Int { return new(big.Int).Add(x0, new(big.Int).SetUint64(off)) }
 	b := &cert.Block{Index: index}
 	s := &b.Summary
-	counts := []**big.Int{&s.Sieve, &s.Search, &s.Small, &s.Cycle, &s.Undecided}
+	counts := []**big.Int{&s.Sieve, &s.Join, &s.Search, &s.Small, &s.Cycle, &s.Undecided}
 	for c, p := range counts {
 		*p = new(big.Int).SetUint64(total.count[c])
 	}
@@ -643,7 +676,7 @@ func totals(blocks []*cert.Block, rules int) cert.Summary {
 	s := zeroSummary(rules)
 	cycles := map[string]*cert.CycleCount{}
 	for _, b := range blocks {
-		for _, pair := range [][2]*big.Int{{s.Sieve, b.Sieve}, {s.Search, b.Search}, {s.Small, b.Small},
+		for _, pair := range [][2]*big.Int{{s.Sieve, b.Sieve}, {s.Join, b.Join}, {s.Search, b.Search}, {s.Small, b.Small},
 			{s.Cycle, b.Cycle}, {s.Undecided, b.Undecided}, {s.SigmaSum, b.SigmaSum}} {
 			pair[0].Add(pair[0], pair[1])
 		}

@@ -32,7 +32,8 @@ type rules struct {
 	bigA    *big.Int
 	bigB    *big.Int
 	limit   int    // cap on the exception search, in numbers tested
-	work    *meter // big-number work and cancellation; nil: unmetered
+	ceiling int    // W: following an orbit stops, undecided, at an iterate of 2^W or more
+	work    *meter // cancellation; nil: none
 }
 
 // maxExceptionSearch caps the numbers the exception search tests: one walk
@@ -49,7 +50,7 @@ func newRules(m cert.Map, k, j int) (*rules, error) {
 		return nil, fmt.Errorf("k = %d, j = %d: want 1 <= j <= k <= %d", k, j, cert.MaxK)
 	}
 	r := &rules{m: m, a: uint64(m.A), b: uint64(int64(m.B)), k: k, j: j,
-		bigA: big.NewInt(int64(m.A)), bigB: big.NewInt(int64(m.B)), limit: maxExceptionSearch}
+		bigA: big.NewInt(int64(m.A)), bigB: big.NewInt(int64(m.B)), limit: maxExceptionSearch, ceiling: cert.MaxCeiling}
 	// x/2 + x*(a-1)/2 + (b+1)/2 < 2^128 when x>>64 < (2^64-1)/a - 1:
 	// then x < 2^128/a - 2^64 and |b| < 2^32 leaves room.
 	r.limHi = ^uint64(0)/r.a - 1
@@ -173,14 +174,16 @@ func (r *rules) step(x *big.Int) bool {
 	return true
 }
 
-// fate iterates n directly (SPEC.md, "Fates"). With x_i = T^i(n): descends
-// at the first i <= cap with x_i < n; otherwise the orbit repeats within
-// x_0..x_cap exactly when x_cap equals an earlier x_i, and then x_cap lies on
-// the cycle, whose smallest member is found by going round it once. Three
-// passes of at most cap steps, constant memory.
+// fate iterates n directly (SPEC.md, "Fates"). With x_i = T^i(n): at the
+// first i <= cap with x_i < n it descends, and at the first with x_i >=
+// 2^W (the ceiling) before that it is undecided; otherwise the orbit
+// repeats within x_0..x_cap exactly when x_cap equals an earlier x_i, and
+// then x_cap lies on the cycle, whose smallest member is found by going
+// round it once. Three passes of at most cap steps on values below 2^W,
+// constant memory.
 //
-// Each step is charged to the work meter; once it fails, fate returns an
-// undecided placeholder and the caller reports the meter's error.
+// Once the meter fails (cancellation), fate returns an undecided
+// placeholder and the caller reports the meter's error.
 func (r *rules) fate(n *big.Int, cap uint32) cert.Exception {
 	e := cert.Exception{N: n, Fate: cert.Undecided}
 	x := new(big.Int).Set(n)
@@ -190,6 +193,9 @@ func (r *rules) fate(n *big.Int, cap uint32) cert.Exception {
 		}
 		if x.Cmp(n) < 0 {
 			e.Fate, e.Steps = cert.Descends, i
+			return e
+		}
+		if x.BitLen() > r.ceiling {
 			return e
 		}
 	}

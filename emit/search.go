@@ -217,11 +217,16 @@ func (r *rules) searchFrom(n uint64, x u128, i uint32, cap uint32) outcome {
 }
 
 // searchBig is searchFrom with math/big, for n or values beyond 128 bits.
+// An iterate at the ceiling stops it, undecided (the fast paths never see
+// one: their values stay below 2^128 <= 2^W).
 func (r *rules) searchBig(n, x *big.Int, i uint32, cap uint32) outcome {
 	x = new(big.Int).Set(x)
 	for ; i <= cap; i++ {
 		if x.Cmp(n) < 0 {
 			return outcome{fate: cert.Descends, sigma: i}
+		}
+		if x.BitLen() > r.ceiling {
+			return outcome{fate: cert.Undecided}
 		}
 		if r.step(x); !r.work.charge(x) {
 			return outcome{fate: cert.Undecided}

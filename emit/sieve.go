@@ -19,10 +19,14 @@ import (
 // SieveParams names a sieve: the map, the modulus exponent k, the step
 // budget j <= k and the step cap for deciding the exceptions' fates.
 type SieveParams struct {
-	Map   cert.Map
-	K, J  int
-	Cap   uint32
-	Joins bool // list joined survivors (needs J = K; SPEC.md, section 8)
+	Map  cert.Map
+	K, J int
+	Cap  uint32
+	// Ceiling is W, in bits: a fate stops, undecided, at an iterate of 2^W
+	// or more. 0 picks cert.DefaultCeiling of the exception bound's bit
+	// length.
+	Ceiling int
+	Joins   bool // list joined survivors (needs J = K; SPEC.md, section 8)
 }
 
 // DefaultCap is the step cap for exceptions' fates when none is given
@@ -90,6 +94,13 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 	if p.Cap == 0 {
 		p.Cap = DefaultCap
 	}
+	if p.Ceiling == 0 {
+		p.Ceiling = cert.DefaultCeiling(r.exceptionBound().BitLen())
+	}
+	if p.Ceiling < cert.MinCeiling || p.Ceiling > cert.MaxCeiling {
+		return nil, fmt.Errorf("ceiling %d bits: want %d to %d", p.Ceiling, cert.MinCeiling, cert.MaxCeiling)
+	}
+	r.ceiling = p.Ceiling
 	h, err := r.header(p.Cap)
 	if err != nil {
 		return nil, err
@@ -281,7 +292,7 @@ func (r *rules) header(cap uint32) (*cert.SieveHeader, error) {
 		return nil, err
 	}
 	return &cert.SieveHeader{
-		Map: r.m, K: r.k, J: r.j, Cap: cap,
+		Map: r.m, K: r.k, J: r.j, Cap: cap, Ceiling: r.ceiling,
 		Chunks:     int(openAt[cert.SplitDepth(r.j)]) + 1,
 		Survivors:  openAt[r.j] << (r.k - r.j),
 		ClosedAt:   closedAt[1:],

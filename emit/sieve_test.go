@@ -283,19 +283,22 @@ func TestWorkedExampleFromTheSpec(t *testing.T) {
 	// SPEC.md, section 5, derives this certificate by hand: 3 survivors mod
 	// 16 (OEIS A076227, a(4) = 3), closings 1, 1, 0, 1 at steps 1..4 (the
 	// even class, then OEIS A100982), the exception n = 1 on the cycle
-	// 1, 2, top-chunk codes 1010 and stub codes 0100 below 3 mod 4. Build
+	// 1, 2, top-chunk codes 1010 and stub codes 0100 below 3 mod 4, and
+	// the ceiling W = max(128, 2*1 + 64) = 128 bits (the exception bound
+	// is 1, of bit length 1). Build
 	// the file from those facts with BLAKE2b and the RFC 6962 tree written
 	// out here, and compare.
 	be32 := func(b []byte, x uint32) []byte { return binary.BigEndian.AppendUint32(b, x) }
 	be64 := func(b []byte, x uint64) []byte { return binary.BigEndian.AppendUint64(b, x) }
 	body := be32(be32(nil, 3), 1)
 	body = append(body, 4, 4)
-	body = be64(be32(body, 100000), 3)
+	body = be32(body, 100000)
+	body = be64(append(body, 0, 128), 3)
 	for _, c := range []uint64{1, 1, 0, 1} {
 		body = be64(body, c)
 	}
 	body = append(be32(body, 1), 1, 1, 2, 1, 1) // n = 1, cycle, m = 1
-	header := append([]byte("descent\x00\x01s"), 0, 0, 0, 2)
+	header := append([]byte("descent\x00\x02s"), 0, 0, 0, 2)
 	header = append(be32(header, uint32(len(body))), body...)
 	top := append(be64(nil, 0), 0, 2, 0, 0, 0, 4, 0xa0)  // 1010
 	stub := append(be64(nil, 3), 2, 4, 0, 0, 0, 4, 0x40) // 0100

@@ -48,7 +48,7 @@
 // (for this example only; a test signs it again and compares):
 //
 //	descent check receipt 1
-//	root 1f1e516934439977e0f14c8ee36d2fbe7bd9a52e1fc3f26e19d9c50dd6acc80f
+//	root 2753cfddc627705cda8b3df4e9fe36c9909fe341a571d6ed619a3bfd7b11c2cb
 //	kind sieve
 //	map 3n+1
 //	k 10
@@ -59,7 +59,7 @@
 //	result valid
 //	time 2026-12-01T12:00:00Z
 //
-//	— alice rJqwYQIhYjME7X1eQsfhbYyeCzKGft50vi49+pbVtpV580Cfj+T4O1TPtr1udGmt5BtZZmwKitaD1ub7NABiHkfN/Qo=
+//	— alice rJqwYaxTHURxPhtyxRZTxGlTRvgEdbwaI5kzW0GzPYAAYoQrk2MmcVv5cVoINi8wMJEB0eWkFDy34vJVGHlqlQ4eZwA=
 //
 // The signature lines follow a blank line, as the note format has them:
 // an em dash, the key's name, and the base64 of the key's 32-bit hash and

@@ -70,7 +70,7 @@ func TestReceiptDocExample(t *testing.T) {
 	skey, vkey, err := NewKey(strings.NewReader("descent receipt example key 0001"), "alice")
 	require.NoError(t, err)
 	require.Equal(t, "alice+ac9ab061+ATmSJIbpvQPLRBQJtiGgNwqu3yIEqdlYHtpVNEOi4hMq", vkey)
-	r := &Receipt{Root: "1f1e516934439977e0f14c8ee36d2fbe7bd9a52e1fc3f26e19d9c50dd6acc80f", Kind: "sieve", Map: "3n+1", K: 10, J: 10,
+	r := &Receipt{Root: "2753cfddc627705cda8b3df4e9fe36c9909fe341a571d6ed619a3bfd7b11c2cb", Kind: "sieve", Map: "3n+1", K: 10, J: 10,
 		Claim:   "3n+1: 64 of the 2^10 residues survive 10 steps; the rest lie in 27 closing classes; 1 exception (n = 1 lies on a cycle, as its smallest member)",
 		Checker: "descent v1.2.0 rev 8320ebb9c1d2e3f4a5b6c7d8e9f0a1b2c3d4e5f6", Result: Result{Valid: true}, Time: when}
 	msg, err := Sign(r, skey)

@@ -21,6 +21,7 @@ func (c *cli) check(args []string) int {
 	part := fs.String("part", "", "check only record `P`, or share i/N, against -root through the Merkle audit path")
 	receiptOut := fs.String("receipt", "", "write a signed receipt of the check to `OUT` (one certificate; needs -sign)")
 	signKey := fs.String("sign", "", "sign the receipt with the secret key `NAME.key` ('descent key new')")
+	budgetFlag := fs.String("budget", "", "the most work to allow, in `steps` of T (like 2^40; default 2^48): a certificate whose work bound exceeds it is reported beyond limits before that work")
 	if code, stop := c.parse(fs, args); stop {
 		return code
 	}
@@ -45,6 +46,14 @@ func (c *cli) check(args []string) int {
 		c.errorf("warning: -seed %q: an audit proves something only if the seed was chosen after the root was published, by someone the writer could not predict; without -seed the checker draws one at random", *seed)
 	}
 	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
+	if *budgetFlag != "" {
+		b, err := parseNumber(*budgetFlag)
+		if err != nil || b.Sign() <= 0 || !b.IsUint64() {
+			c.errorf("check: -budget %q: want a positive number of steps below 2^64, like 2^40", *budgetFlag)
+			return exitUsage
+		}
+		o.Budget = b.Uint64()
+	}
 	if *shardFlag != "" {
 		sh, err := parseShard(*shardFlag, os.Getenv)
 		if err != nil {
@@ -71,11 +80,17 @@ func (c *cli) check(args []string) int {
 	status := exitOK
 	for _, path := range fs.Args() {
 		var rep *check.Report
+		update, finish := c.progress("records")
+		o.Progress = nil
+		if update != nil {
+			o.Progress = func(done, total int) { update(done, total, "") }
+		}
 		if *part != "" {
 			rep = check.Part(path, *part, *o.Root, o)
 		} else {
 			rep = check.File(path, o)
 		}
+		finish()
 		status = max(status, exitStatus(rep))
 		words(rep)
 		if rc != nil {
@@ -210,6 +225,14 @@ func (c *cli) printReport(rep *check.Report) {
 		}
 		return
 	}
+	if errors.Is(rep.Err(), check.ErrUsage) {
+		// The reader's own mistake, not a fault of the certificate.
+		c.errorf("%s: %v", rep.File, rep.Err())
+		if rep.Hint != "" {
+			fmt.Fprintf(c.stderr, "hint: %s\n", rep.Hint)
+		}
+		return
+	}
 	verdict := "INVALID"
 	switch err := rep.Err(); {
 	case errors.Is(err, check.ErrLimits):
@@ -218,9 +241,6 @@ func (c *cli) printReport(rep *check.Report) {
 		verdict = "MALFORMED"
 	}
 	fmt.Fprintf(w, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
-	if rep.Reason == "unreadable" {
-		c.errorf("%s: %v", rep.File, rep.Err())
-	}
 	if wh := rep.Where; wh != nil && (wh.Expected != "" || wh.Found != "") {
 		fmt.Fprintf(w, "  claim      %s\n  expected   %s\n  found      %s\n", wh.Claim, wh.Expected, wh.Found)
 	}

@@ -17,6 +17,7 @@ type facts struct {
 	Map        string
 	K, J       int
 	Cap        uint32
+	Ceiling    int
 	Survivors  uint64 // all survivors, joined or not
 	Joins      bool   // a sieve with joins
 	Joined     uint64 // the survivors joined to smaller residues
@@ -42,7 +43,7 @@ func factsFromHeader(h *cert.SieveHeader) facts {
 // sieveReport is a report of the claim as written in a sieve header: it
 // re-derives nothing (check.ModeUnchecked).
 func sieveReport(h *cert.SieveHeader, root cert.Hash, chunks int) *check.Report {
-	r := &check.Report{Mode: check.ModeUnchecked, Kind: "sieve", Root: root.String(), Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap,
+	r := &check.Report{Mode: check.ModeUnchecked, Kind: "sieve", Root: root.String(), Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling,
 		Chunks: chunks, Survivors: check.Num(fmt.Sprint(h.Survivors)), ClosedAt: map[string]check.Num{}, Exceptions: []check.ExceptionReport{}}
 	if h.Joins { // survivors: the classes still to search
 		r.Survivors = check.Num(fmt.Sprint(h.Survivors - h.Joined))
@@ -64,7 +65,7 @@ func sieveReport(h *cert.SieveHeader, root cert.Hash, chunks int) *check.Report 
 }
 
 func factsFromReport(r *check.Report) facts {
-	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap}
+	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap, Ceiling: r.Ceiling}
 	f.Survivors, _ = strconv.ParseUint(string(r.Survivors), 10, 64)
 	if r.Joined != "" {
 		f.Joins = true
@@ -96,7 +97,7 @@ func (f facts) closedClasses() uint64 {
 	return n
 }
 
-func (e excFact) fateText(cap uint32) string {
+func (e excFact) fateText(cap uint32, ceiling int) string {
 	switch e.Fate {
 	case "descends":
 		return "descends below itself after " + count(e.Steps, "step", "steps")
@@ -106,13 +107,13 @@ func (e excFact) fateText(cap uint32) string {
 		}
 		return "reaches the cycle whose smallest member is " + e.CycleMin
 	}
-	return "undecided: neither descends nor repeats within " + count(cap, "step", "steps")
+	return fmt.Sprintf("undecided: its orbit reaches 2^%d before dropping below it, or neither drops nor repeats within %s", ceiling, count(cap, "step", "steps"))
 }
 
 func (f facts) exceptionList() string {
 	var parts []string
 	for _, e := range f.Exceptions {
-		parts = append(parts, fmt.Sprintf("n = %s %s", e.N, e.fateText(f.Cap)))
+		parts = append(parts, fmt.Sprintf("n = %s %s", e.N, e.fateText(f.Cap, f.Ceiling)))
 	}
 	return strings.Join(parts, "; ")
 }

@@ -28,6 +28,7 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	j := fs.Int("j", 0, "step budget `J`, 1 to K: classes may close at steps 1..J (default K)")
 	mapFlag := fs.String("map", "3n+1", "the `map` T: n/2 for even n, (an+b)/2 for odd n, written an+b or an-b")
 	capFlag := fs.Uint("cap", emit.DefaultCap, "step cap `N` for deciding the fate of each exception")
+	ceiling := fs.Int("ceiling", 0, "ceiling `W` in bits: an exception whose orbit reaches 2^W before dropping is undecided (default max(128, 2L+64), L the bits of the exception bound)")
 	join := fs.Bool("join", false, "also claim joins: survivors whose path meets that of a smaller residue after k steps (needs j = k)")
 	workers := fs.Int("workers", 0, "`N` parallel chunk encoders (default 0: all cores)")
 	shardFlag := fs.String("shard", "", "write only shard `i/N` (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
@@ -78,6 +79,11 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 		c.errorf("emit sieve: -cap %d: want 1 to %d", *capFlag, cert.MaxCap)
 		return exitUsage
 	}
+	if (set["ceiling"] || *ceiling != 0) && (*ceiling < cert.MinCeiling || *ceiling > cert.MaxCeiling) {
+		c.errorf("emit sieve: -ceiling %d: want %d to %d bits", *ceiling, cert.MinCeiling, cert.MaxCeiling)
+		c.hintf("leave -ceiling out for the default")
+		return exitUsage
+	}
 
 	f, ok := c.createOutput(ctx, "emit sieve", *out, *replace, nil)
 	if !ok {
@@ -88,7 +94,7 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	if update != nil {
 		progress = func(done, total int) { update(done, total, "") }
 	}
-	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag), Joins: *join},
+	res, err := emit.Sieve(ctx, f, emit.SieveParams{Map: m, K: *k, J: *j, Cap: uint32(*capFlag), Ceiling: *ceiling, Joins: *join},
 		emit.Options{Workers: *workers, Progress: progress, Shard: shard})
 	finish()
 	if err == nil {

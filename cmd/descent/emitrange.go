@@ -18,6 +18,7 @@ type rangeRun struct {
 	lo, hi    *big.Int
 	block     int
 	capSteps  uint32
+	ceiling   int
 	rules     bool
 	workers   int
 	shard     *emit.Shard
@@ -32,6 +33,7 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 	toFlag := fs.String("to", "", "the bound `HI`: the range is [LO, HI)")
 	block := fs.Int("block", 0, "blocks of 2^`E` numbers, E at least the sieve's k (default k + 4)")
 	capFlag := fs.Uint("cap", emit.DefaultRangeCap, "step cap `N`: a number not decided within it is reported undecided")
+	ceiling := fs.Int("ceiling", 0, "ceiling `W` in bits: a number whose orbit reaches 2^W before dropping is reported undecided (default max(128, 2L+64), L the bits of HI-1, raised to what the sieve's k needs)")
 	rulesFlag := fs.String("rules", "none", "predecessor rules: `auto` (justify the numbers of survivor classes that have a smaller predecessor, found for the map) or none")
 	workers := fs.Int("workers", 0, "`N` parallel workers (default 0: all cores)")
 	shardFlag := fs.String("shard", "", "write only shard `i/N` of the blocks (or auto, auto/N: from SLURM_ARRAY_TASK_ID or JOB_COMPLETION_INDEX)")
@@ -61,6 +63,10 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 		c.errorf("emit range: -block 0: want the sieve's k to %d", cert.MaxBlockExp)
 		c.hintf("leave -block out for the default, the sieve's k + 4")
 		return exitUsage
+	case set["ceiling"] && (*ceiling < cert.MinCeiling || *ceiling > cert.MaxCeiling):
+		c.errorf("emit range: -ceiling %d: want %d to %d bits", *ceiling, cert.MinCeiling, cert.MaxCeiling)
+		c.hintf("leave -ceiling out for the default")
+		return exitUsage
 	case *rulesFlag != "auto" && *rulesFlag != "none":
 		c.errorf("emit range: -rules %q: want auto or none", *rulesFlag)
 		return exitUsage
@@ -80,7 +86,7 @@ func (c *cli) emitRange(ctx context.Context, args []string) int {
 		c.errorf("emit range: -to %v", err)
 		return exitUsage
 	}
-	return c.runRange(ctx, rangeRun{sievePath: *sievePath, lo: lo, hi: hi, block: *block, capSteps: uint32(*capFlag),
+	return c.runRange(ctx, rangeRun{sievePath: *sievePath, lo: lo, hi: hi, block: *block, capSteps: uint32(*capFlag), ceiling: *ceiling,
 		rules: *rulesFlag == "auto", workers: *workers, shard: shard, out: *out, replace: *replace})
 }
 
@@ -129,7 +135,7 @@ func (c *cli) runRange(ctx context.Context, r rangeRun) int {
 		c.errorf("emit range: -block %d: want the sieve's k = %d to %d", r.block, sh.K, cert.MaxBlockExp)
 		return exitUsage
 	}
-	p := emit.RangeParams{Sieve: sh, SieveRoot: root, Lo: r.lo, Hi: r.hi, E: r.block, Cap: r.capSteps}
+	p := emit.RangeParams{Sieve: sh, SieveRoot: root, Lo: r.lo, Hi: r.hi, E: r.block, Cap: r.capSteps, Ceiling: r.ceiling}
 	if r.rules {
 		p.Rules = emit.AutoRules(sh.Map)
 	}

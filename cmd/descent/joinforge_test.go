@@ -75,7 +75,7 @@ func (c *joinCut) seal(t *testing.T) []byte {
 
 // claim sets the join of survivor number x of chunk i to delta (0: none),
 // keeping the header's count true.
-func (c *joinCut) claim(i, x int, delta int64) {
+func (c *joinCut) claim(i, x int, delta uint64) {
 	j := &c.joins[i]
 	at := 0 // the place of x's delta among the joined
 	for y := range x {
@@ -92,7 +92,7 @@ func (c *joinCut) claim(i, x int, delta int64) {
 		c.h.Joined--
 	case delta != 0:
 		j.Joined[x] = true
-		j.Delta = append(j.Delta[:at], append([]int64{delta}, j.Delta[at:]...)...)
+		j.Delta = append(j.Delta[:at], append([]uint64{delta}, j.Delta[at:]...)...)
 		c.h.Joined++
 	}
 }
@@ -113,12 +113,12 @@ func plainAfterK(x uint64, k int) (int, uint64) {
 
 // pick finds a survivor, not joined, and a smaller residue whose state
 // after k steps relates to the survivor's as want says.
-func (c *joinCut) pick(t *testing.T, want func(s1 int, v1 uint64, s2 int, v2 uint64) bool) (int, int, int64) {
+func (c *joinCut) pick(t *testing.T, want func(s1 int, v1 uint64, s2 int, v2 uint64) bool) (int, int, uint64) {
 	t.Helper()
 	return c.pickPair(t, func(_, _ uint64, s1 int, v1 uint64, s2 int, v2 uint64) bool { return want(s1, v1, s2, v2) })
 }
 
-func (c *joinCut) pickPair(t *testing.T, want func(r, p uint64, s1 int, v1 uint64, s2 int, v2 uint64) bool) (int, int, int64) {
+func (c *joinCut) pickPair(t *testing.T, want func(r, p uint64, s1 int, v1 uint64, s2 int, v2 uint64) bool) (int, int, uint64) {
 	t.Helper()
 	k := c.h.K
 	for i := 1; i < len(c.chunks); i++ {
@@ -129,7 +129,7 @@ func (c *joinCut) pickPair(t *testing.T, want func(r, p uint64, s1 int, v1 uint6
 			s1, v1 := plainAfterK(r, k)
 			for p := r - 1; p+1 > 0 && r-p < 1<<12; p-- {
 				if s2, v2 := plainAfterK(p, k); want(r, p, s1, v1, s2, v2) {
-					return i, x, int64(r - p)
+					return i, x, r - p
 				}
 			}
 		}
@@ -149,19 +149,16 @@ func TestJoinForgeriesAreCaught(t *testing.T) {
 		forge  func(c *joinCut)
 		reason string
 	}{
-		{"a partner larger than the survivor", func(c *joinCut) {
-			i, x, _ := c.pick(t, func(int, uint64, int, uint64) bool { return true })
-			c.claim(i, x, -1)
-		}, "join"},
-		{"a partner equal to the survivor", func(c *joinCut) {
-			i, x, _ := c.pick(t, func(int, uint64, int, uint64) bool { return true })
-			c.claim(i, x, 0)
-			c.claim(i, x, 1)
-			c.joins[i].Delta[0] = 0
-		}, "join"},
+		// Format version 2 has no code for a partner at or above the
+		// survivor (every delta is at least 1), so a partner below zero is
+		// the only one out of range.
 		{"a partner below zero", func(c *joinCut) {
 			i, x, _ := c.pick(t, func(int, uint64, int, uint64) bool { return true })
-			c.claim(i, x, int64(c.survivors[i][x])+1)
+			c.claim(i, x, c.survivors[i][x]+1)
+		}, "join"},
+		{"the largest delta the format carries", func(c *joinCut) {
+			i, x, _ := c.pick(t, func(int, uint64, int, uint64) bool { return true })
+			c.claim(i, x, cert.MaxJoinVarint+2)
 		}, "join"},
 		{"paths that meet for q = 0 only", func(c *joinCut) {
 			// The numbers r and r' themselves meet (at a value above 4,
@@ -203,7 +200,8 @@ func TestJoinForgeriesAreCaught(t *testing.T) {
 			require.Equal(t, exitInvalid, code, "%v", rep)
 			require.Equal(t, false, rep["valid"])
 			require.Equal(t, f.reason, rep["reason"], "%v", rep["error"])
-			require.Contains(t, check.Reasons, f.reason, "the reason is listed in check.Reasons")
+			_, listed := check.LookupReason(f.reason)
+			require.True(t, listed, "reason %q is listed in check.Reasons", f.reason)
 			require.NotEmpty(t, rep["where"])
 		})
 	}

@@ -56,5 +56,5 @@ func TestFailedRangeJournal(t *testing.T) {
 	failedJournal(t, sieve, out, 2, "the work limit")
 	code, _, stderr = runCLI("emit", "range", "-sieve", sieve, "-to", "2^20", "-block", "15", "-replace", "-o", out)
 	require.Equal(t, exitOK, code, stderr)
-	require.Regexp(t, "^descent: emit range: removed "+regexp.QuoteMeta(out)+`\.partial, the journal of an earlier run with other parameters that failed \(map 3n\+1, from 1 to 1048576, blocks of 2\^14, cap 100000, 0 predecessor rules, sieve root [0-9a-f]{64}; it failed: the work limit\)`+"\n$", stderr)
+	require.Regexp(t, "^descent: emit range: removed "+regexp.QuoteMeta(out)+`\.partial, the journal of an earlier run with other parameters that failed \(map 3n\+1, from 1 to 1048576, blocks of 2\^14, cap 100000, ceiling 2\^128, 0 predecessor rules, sieve root [0-9a-f]{64}; it failed: the work limit\)`+"\n$", stderr)
 }

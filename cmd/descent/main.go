@@ -1,10 +1,10 @@
 // Command descent emits, checks and shows certificates of computational
 // verifications of the 3n+1 problem and its relatives.
 //
-//	descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
-//	descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
+//	descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-ceiling W] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
+//	descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-ceiling W] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
 //	descent merge [-replace] -o FILE SHARD...
-//	descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
+//	descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-budget STEPS] [-shard i/N] [-workers N] FILE...
 //	descent check -part P -root HEX [-json] [-sieve FILE] FILE
 //	descent show [-json] FILE
 //	descent check -receipt OUT -sign NAME.key [check flags] FILE
@@ -54,10 +54,10 @@ const (
 // package doc, the README and each command's -h repeat its lines, and
 // TestUsageListsEveryFlag keeps them all equal to the flags defined.
 const usage = `usage:
-  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
-  descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
+  descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-ceiling W] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
+  descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-ceiling W] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
   descent merge [-replace] -o FILE SHARD...
-  descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-shard i/N] [-workers N] FILE...
+  descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-budget STEPS] [-shard i/N] [-workers N] FILE...
   descent check -part P -root HEX [-json] [-sieve FILE] FILE
   descent show [-json] FILE
   descent check -receipt OUT -sign NAME.key [check flags] FILE

@@ -319,7 +319,7 @@ func TestInterruptedRangeKeepsItsJournal(t *testing.T) {
 	other := append(append([]string{}, args[:8]...), "-block", "19", "-o", target)
 	r := runBinary(t, bin, nil, other...)
 	require.Equal(t, exitUsage, r.code, r.stderr)
-	require.Regexp(t, `^descent: emit range: \S+r\.dcert\.partial holds \d+ completed blocks of an interrupted run with other parameters \(map 3n\+1, from 1099511627776 to 1099578736640, blocks of 2\^18, cap 100000, 0 predecessor rules, sieve root [0-9a-f]{64}\)\nhint: run that command again to resume it, or remove \S+r\.dcert\.partial \(or give another -o\) to start this one\n$`, r.stderr)
+	require.Regexp(t, `^descent: emit range: \S+r\.dcert\.partial holds \d+ completed blocks of an interrupted run with other parameters \(map 3n\+1, from 1099511627776 to 1099578736640, blocks of 2\^18, cap 100000, ceiling 2\^\d+, 0 predecessor rules, sieve root [0-9a-f]{64}\)\nhint: run that command again to resume it, or remove \S+r\.dcert\.partial \(or give another -o\) to start this one\n$`, r.stderr)
 
 	// The same arguments resume.
 	r = runBinary(t, bin, nil, args...)

@@ -16,6 +16,7 @@ type rangeFacts struct {
 	Map, Lo, Hi, SieveRoot string
 	K, E                   int
 	Cap                    uint32
+	Ceiling                int
 	Counts                 check.RangeCounts
 	Records                []check.RecordReport // over the numbers with a stated stopping time
 	Max                    *check.RecordReport  // the same
@@ -38,11 +39,11 @@ func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *check.Report {
 	t := &h.Totals
 	r := &check.Report{Mode: check.ModeUnchecked, Kind: "range", Root: root.String(), Map: h.Map.String(), SieveRoot: h.SieveRoot.String(),
-		From: num(h.Lo), To: num(h.Hi), K: h.K, BlockExp: h.E, Cap: h.Cap, Chunks: h.Blocks,
-		Counts: &check.RangeCounts{Sieve: num(t.Sieve), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
+		From: num(h.Lo), To: num(h.Hi), K: h.K, BlockExp: h.E, Cap: h.Cap, Ceiling: h.Ceiling, Chunks: h.Blocks,
+		Counts: &check.RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
 			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []check.RuleReport{}},
 		Records: []check.RecordReport{}, Cycles: []check.CycleReport{}, Undecided: []check.Num{},
-		Below: check.FatesBelow(h.Map.A, h.Map.B, h.Cap, h.Lo)}
+		Below: check.FatesBelow(h.Map.A, h.Map.B, h.Cap, h.Ceiling, h.Lo)}
 	for i, x := range h.Rules {
 		rr := check.RuleReport{Class: fmt.Sprintf("%d*q+%d", x.M, x.C), Predecessor: fmt.Sprintf("%d*q+%d", x.Mp, x.Cp), Steps: x.Steps, Numbers: "0"}
 		if i < len(t.Rules) {
@@ -66,7 +67,7 @@ func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *che
 }
 
 func rangeFactsFromReport(r *check.Report) rangeFacts {
-	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap,
+	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap, Ceiling: r.Ceiling,
 		Records: r.Records, Max: r.MaxStoppingTime, Cycles: r.Cycles, Below: r.Below}
 	if r.Counts != nil {
 		f.Counts = *r.Counts
@@ -120,11 +121,15 @@ func cyclesText(mins []string) string {
 	return "the cycles whose smallest members are " + list(mins, "and")
 }
 
-// undecidedDef says what undecided means for this certificate. (A later
-// format adds a ceiling on the size of the iterates here.)
+// undecidedDef says what undecided means for this certificate: the fate
+// rule of SPEC.md, section 1, with its cap and ceiling.
 func (f rangeFacts) undecidedDef() string {
-	return "it neither drops below itself nor repeats within " + count(f.Cap, "step", "steps") + " of T"
+	return fmt.Sprintf("its orbit reaches 2^%d before dropping below it, or neither drops below it nor repeats within %s of T",
+		f.Ceiling, count(f.Cap, "step", "steps"))
 }
+
+// joins says whether numbers of the range rest on joins of the sieve.
+func (f rangeFacts) joins() bool { return f.Counts.Join != "" && f.Counts.Join != "0" }
 
 // stoppingTimeText is a stopping time with its step convention.
 func stoppingTimeText(r *check.RecordReport) string {
@@ -141,6 +146,9 @@ func (f rangeFacts) summary() string {
 	s := fmt.Sprintf("%s over %s: %s with a stated stopping time (%s by the sieve, %s by search, %s iterated directly)",
 		f.Map, f.rangeText(), count(stated, "number", "numbers"), f.Counts.Sieve, f.Counts.Search,
 		count(f.Counts.Small, "small one", "small ones"))
+	if f.joins() {
+		s += fmt.Sprintf(", %s resting on joins of the sieve", f.Counts.Join)
+	}
 	if len(f.Counts.Rules) > 0 {
 		s += fmt.Sprintf(", %s resting on %s", f.ruleNumbers(), count(len(f.Counts.Rules), "predecessor rule", "predecessor rules"))
 	}
@@ -249,6 +257,10 @@ func (f rangeFacts) sentence() string {
 	rules := len(f.Counts.Rules) > 0
 	s := fmt.Sprintf("For %s, the certificate gives each n in %s one of these: its stopping time, the least i with T^i(n) < n, "+
 		"shown by the sieve, by a search or by direct iteration", f.mapText(), f.rangeText())
+	if f.joins() {
+		s += fmt.Sprintf("; a smaller number that n meets after %d steps, by a join of the sieve (n lies in a survivor class r mod 2^%d "+
+			"that the sieve joins to a smaller residue r' with the same state after %d steps, so n meets n - r + r')", f.K, f.K, f.K)
+	}
 	if rules {
 		s += "; a smaller predecessor m whose orbit passes through n, by a predecessor rule"
 	}
@@ -262,6 +274,9 @@ func (f rangeFacts) sentence() string {
 	}
 	s += " Two numbers whose orbits share a value reach the same cycle, or neither reaches one, since from that value on the orbits " +
 		"coincide; a number that drops shares a value with the smaller number it drops to"
+	if f.joins() {
+		s += ", a number resting on a join with the smaller number it meets"
+	}
 	if rules {
 		s += ", and a number resting on a rule with its predecessor"
 	}
@@ -284,6 +299,9 @@ func (f rangeFacts) caveat() string {
 	s += " It states stopping times only for the numbers justified by the sieve, by search or as small ones"
 	if n := f.ruleNumbers(); n.Sign() > 0 {
 		s += fmt.Sprintf("; the %s resting on predecessor rules may have larger ones than the largest stated", count(n.String(), "number", "numbers"))
+	}
+	if f.joins() {
+		s += fmt.Sprintf("; so may the %s resting on joins of the sieve", count(f.Counts.Join, "number", "numbers"))
 	}
 	s += "."
 	if f.Counts.Undecided != "0" {

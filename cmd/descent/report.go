@@ -230,11 +230,11 @@ func sieveSection(rep *check.Report, s report.Section) report.Section {
 	closing.Plot.Series = []report.Series{{Points: pts}}
 
 	exc := report.Figure{ID: "exceptions", Title: "Exceptions",
-		Caption: fmt.Sprintf("Members at or below their class's threshold, each decided by direct iteration within %s.", count(int(f.Cap), "step", "steps")),
+		Caption: fmt.Sprintf("Members at or below their class's threshold, each decided by direct iteration within %s, below the ceiling 2^%d.", count(int(f.Cap), "step", "steps"), f.Ceiling),
 		Table:   report.Table{Columns: []string{"n", "fate"}},
 	}
 	for _, e := range f.Exceptions {
-		exc.Table.Rows = append(exc.Table.Rows, []string{e.N, e.fateText(f.Cap)})
+		exc.Table.Rows = append(exc.Table.Rows, []string{e.N, e.fateText(f.Cap, f.Ceiling)})
 	}
 	s.Figures = []report.Figure{surv, closing, exc}
 	return s
@@ -490,7 +490,7 @@ func boundBlocks(rep *check.Report) ([]blockSpan, error) {
 		if cert.LeafHash(rec) != rd.Levels[0][i+1] {
 			return nil, fmt.Errorf("block %d of %s does not match its hash", i, rep.File)
 		}
-		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		b, err := cert.ParseBlock(rec, rd.Offs[i], len(h.Rules))
 		if err != nil {
 			return nil, err
 		}

@@ -111,7 +111,7 @@ func TestPartCheckReadsOnlyItsPart(t *testing.T) {
 		"an altered audit path":    {altered, "1", root, "audit"},
 		"another certificate":      {other, "2", root, "audit"},
 		"a root that is not it":    {b, "2", "00" + root[2:], "audit"},
-		"a record beyond the file": {b, itoa(records), root, "malformed"},
+		"a record beyond the file": {b, itoa(records), root, "part"},
 	} {
 		p := filepath.Join(dir, "bad.dcert")
 		require.NoError(t, os.WriteFile(p, c.file, 0o644))

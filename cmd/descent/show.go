@@ -142,7 +142,7 @@ func (c *cli) printShow(path string, h *cert.SieveHeader, root cert.Hash, f fact
 		fmt.Fprintf(w, "  none\n")
 	}
 	for _, e := range f.Exceptions {
-		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap))
+		fmt.Fprintf(w, "  n = %s %s\n", e.N, e.fateText(f.Cap, f.Ceiling))
 	}
 	fmt.Fprintf(w, "\nThis is the claim as written in the file; 'descent check %s' re-derives it.\n", path)
 }
@@ -192,7 +192,7 @@ func readRange(path string) (*cert.RangeHeader, cert.Hash, []*big.Int, error) {
 		if cert.LeafHash(rec) != rd.Levels[0][i+1] {
 			return nil, cert.Hash{}, nil, fmt.Errorf("block %d does not match its hash: %w", i, cert.ErrHashMismatch)
 		}
-		b, err := cert.ParseBlock(rec, rd.Offs[i])
+		b, err := cert.ParseBlock(rec, rd.Offs[i], len(h.Rules))
 		if err != nil {
 			return nil, cert.Hash{}, nil, err
 		}
@@ -229,6 +229,7 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	fmt.Fprintf(tw, "  sieve\t%s (k = %d)\n", f.SieveRoot, f.K)
 	fmt.Fprintf(tw, "  blocks\t%s of 2^%d numbers\n", count(h.Blocks, "block", "blocks"), f.E)
 	fmt.Fprintf(tw, "  step cap\t%s of T\n", count(f.Cap, "step", "steps"))
+	fmt.Fprintf(tw, "  ceiling\t2^%d: an orbit that reaches it before dropping is undecided\n", f.Ceiling)
 	tw.Flush()
 	fmt.Fprintf(w, "\nClaim\n%s\n", wrap(f.sentence(), 76, "  "))
 	fmt.Fprintf(w, "\nWhat it does not prove\n%s\n", wrap(f.caveat(), 76, "  "))
@@ -238,6 +239,7 @@ func (c *cli) showRange(path string, asJSON bool) int {
 		{string(f.Counts.Sieve), "in a closing class of the sieve: stopping time = the closing step"},
 		{string(f.Counts.Search), "in a survivor class, searched until " + agree(f.Counts.Search, "it drops", "they drop")},
 		{string(f.Counts.Small), agree(f.Counts.Small, "small number, iterated directly until it drops", "small numbers, iterated directly until they drop")},
+		{string(f.Counts.Join), "in a survivor class the sieve joins to a smaller residue: " + agree(f.Counts.Join, "meets a smaller number", "meet smaller numbers") + fmt.Sprintf(" after %d steps", f.K)},
 	} {
 		fmt.Fprintf(tw, "  %s\t  %s\n", row[0], row[1])
 	}
@@ -252,6 +254,9 @@ func (c *cli) showRange(path string, asJSON bool) int {
 	fmt.Fprintf(w, "  stated for %s: those justified by the sieve, by search or as small ones\n", count(f.Counts.Stated(), "number", "numbers"))
 	if n := f.ruleNumbers(); n.Sign() > 0 {
 		fmt.Fprintf(w, "  not stated for the %s resting on predecessor rules: theirs may be larger\n", count(n.String(), "number", "numbers"))
+	}
+	if f.joins() {
+		fmt.Fprintf(w, "  not stated for the %s resting on joins of the sieve: theirs may be larger\n", count(f.Counts.Join, "number", "numbers"))
 	}
 	if f.Max != nil {
 		fmt.Fprintf(w, "  the largest stated: %s, first at n = %s\n", stoppingTimeText(f.Max), f.Max.N)
