@@ -56,12 +56,11 @@ type CensusResult struct {
 const DefaultCensusBlock = 24
 
 // Memo sizes: every x below 2^censusSmallBits has an entry, and the memo
-// covers at most 2^censusMemoBits numbers (1 GiB for 3n+b, which stores one
-// number in four; half that range for other maps, which store every odd
-// one).
+// covers at most 2^censusMemoBits numbers, with an entry for every odd one
+// (1 GiB).
 const (
 	censusSmallBits = 16
-	censusMemoBits  = 30
+	censusMemoBits  = 29
 	censusPiece     = 1 << 18 // numbers per piece of work
 )
 
@@ -107,19 +106,17 @@ func censusHeader(p CensusParams, blocks int, t cert.CensusSummary) *cert.Census
 	return &cert.CensusHeader{Map: p.Map, Cap: p.Cap, Ceiling: p.Ceiling, E: p.E, Lo: p.Lo, Hi: p.Hi, Blocks: blocks, Totals: t}
 }
 
-// memoBits picks the memo's size: the whole range when it lies below
-// 2^censusMemoBits, so that every number is read from the memo; otherwise
-// about the range's width, so that a block far from 1 costs about its own
-// numbers.
-func memoBits(p CensusParams, shift uint, override int) int {
+// memoBits picks the memo's size: below 2^censusMemoBits, every number
+// under half of hi, so that the numbers of the range all fall onto it
+// within their wave (those of the last wave [P, 2P) need no entries of
+// their own, as nothing falls onto them later); otherwise about the
+// range's width, so that a block far from 1 costs about its own numbers.
+func memoBits(p CensusParams, override int) int {
 	most := censusMemoBits
-	if shift == 1 {
-		most--
-	}
 	if override > 0 {
 		return min(max(override, censusSmallBits), most)
 	}
-	top := new(big.Int).Sub(p.Hi, big.NewInt(1)).BitLen()
+	top := new(big.Int).Sub(p.Hi, big.NewInt(1)).BitLen() - 1
 	if top <= most {
 		return max(top, censusSmallBits)
 	}
@@ -261,7 +258,7 @@ func (r *censusRun) compute(ctx context.Context) error {
 	}
 	c := r.c
 	small := uint64(1) << censusSmallBits
-	bound := uint64(1) << memoBits(r.p, c.shift, r.o.MemoBits)
+	bound := uint64(1) << memoBits(r.p, r.o.MemoBits)
 	c.allocMemo(bound)
 	if err := c.fillSmall(); err != nil {
 		return err
@@ -324,6 +321,7 @@ func (r *censusRun) compute(ctx context.Context) error {
 		workers = runtime.GOMAXPROCS(0)
 	}
 	for _, wave := range waves {
+		c.setJumpMin() // every cycle with its smallest member below this wave is found
 		eg, ectx := errgroup.WithContext(ctx)
 		eg.SetLimit(workers)
 		for _, u := range wave {

@@ -84,11 +84,12 @@ type censor struct {
 	// The memo: an entry for every x < smallN, and for the stored x in
 	// [smallN, bound) (see stored).
 	smallN, bound uint64
-	mem           []uint32 // the entries of x < smallN, then of the stored x >= smallN (index)
-	shift         uint     // 2: only the odd x = r mod 4 not reduced by two steps are stored; 1: every odd x
-	r4            uint64   // with shift 2: the odd class mod 4 whose two steps halve twice
+	mem           []uint32 // the entries of x < smallN, then of the odd x >= smallN (index)
+	r4            uint64   // for 3n+b, the odd class mod 4 whose step is followed by a halving: 3r + b = 0 mod 4; else 4
 	lim64         uint64   // a*x + b fits 64 bits for odd x <= lim64
-	limHi         uint64   // a*x + b fits 128 bits while x>>64 < limHi
+	jump          []censusJumpEntry
+	jumpMin       uint64 // down jumps from x >= jumpMin (setJumpMin)
+	limHi         uint64 // a*x + b fits 128 bits while x>>64 < limHi
 }
 
 // Memo entries: d+1 in bits 0..11 (0: not held, the number takes the exact
@@ -112,18 +113,19 @@ func packEntry(f fate, peakBits int) uint32 {
 	return uint32(f.d+1) | uint32(f.h)<<12 | uint32(min(peakBits, ePeakBitsOK))<<23 | uint32(f.cyc)<<30
 }
 
-// newCensor makes a censor whose memo will hold every x below smallN. For
-// 3n+b with |b| < smallN, an odd x >= smallN of the class r4 mod 4 takes
-// two steps to (3x+b)/4 < x, so the memo stores only the other odd class.
+// newCensor makes a censor whose memo will hold every x below smallN and
+// every odd x above.
 func newCensor(m cert.Map, cap uint32, ceiling int, work *meter, smallN uint64) *censor {
 	c := &censor{m: m, a: uint64(m.A), b: int64(m.B), bigA: big.NewInt(int64(m.A)), bigB: big.NewInt(int64(m.B)),
-		cap: uint64(cap), ceiling: ceiling, work: work, smallN: smallN, shift: 1}
+		cap: uint64(cap), ceiling: ceiling, work: work, smallN: smallN}
 	pos := uint64(max(c.b, 0))
 	c.lim64 = (^uint64(0) - pos) / c.a
 	c.limHi = ^uint64(0)/c.a - 1
-	if c.a == 3 && c.b < int64(smallN) && -c.b < int64(smallN) {
-		c.shift = 2
-		if (3+c.b)&3 == 0 { // 3r + b = 0 mod 4 for the odd r it reduces
+	c.jump = censusJumpTable(m)
+	c.setJumpMin()
+	c.r4 = 4 // no class mod 4 is 4
+	if c.a == 3 {
+		if (3+c.b)&3 == 0 {
 			c.r4 = 1
 		} else {
 			c.r4 = 3
@@ -136,7 +138,7 @@ func newCensor(m cert.Map, cap uint32, ceiling int, work *meter, smallN uint64) 
 // least smallN.
 func (c *censor) allocMemo(bound uint64) {
 	c.bound = bound
-	c.mem = make([]uint32, c.smallN+bound>>c.shift+1)
+	c.mem = make([]uint32, c.smallN+bound>>1+1)
 }
 
 // stored says whether the memo holds an entry of its own for x.
@@ -144,10 +146,7 @@ func (c *censor) stored(x uint64) bool {
 	if x < c.smallN {
 		return true
 	}
-	if x&1 == 0 {
-		return false
-	}
-	return c.shift == 1 || x&3 != c.r4
+	return x&1 == 1
 }
 
 func (c *censor) put(x uint64, e uint32) { c.mem[c.index(x)] = e }
@@ -300,13 +299,33 @@ func (x u128) bitLen() int {
 // the smallest member of a cycle (an even number never is: half of it lies
 // on its cycle too), and the orbit fell below floor, which the orbit of a
 // smallest member at or above floor never does.
+//
+// Where x >= jumpMin, it takes censusJumpBits steps at once by the table
+// (see censusJumpTable); the peak is then an upper bound, never below the true
+// one, which is all the memo and the search for path records need of it.
 func (c *censor) down(n, floor, limit uint64) (x uint64, d, h uint64, peak u128, ok bool) {
 	x = n
 	pk := n
 	am1, b := c.a-1, uint64(c.b)
-	// Without a branch on the parity, which is as unpredictable as a coin:
-	// y = a*x + b for odd x, x for even x; then every halving at once.
 	for x >= floor {
+		if x >= c.jumpMin && d <= limit {
+			e := &c.jump[x&(1<<censusJumpBits-1)]
+			q := x >> censusJumpBits
+			hi, lo := bits.Mul64(q, e.mul)
+			lo, carry := bits.Add64(lo, e.add, 0)
+			phi, plo := bits.Mul64(q, e.peakM)
+			plo, pcarry := bits.Add64(plo, e.peakD, 0)
+			if hi|carry|phi|pcarry == 0 && plo < 1<<63 {
+				x = lo
+				d += censusJumpBits
+				h += e.odd
+				pk = max(pk, 2*plo)
+				continue
+			}
+		}
+		// Without a branch on the parity, which is as unpredictable as a
+		// coin: y = a*x + b for odd x, x for even x; then every halving
+		// at once.
 		if x > c.lim64 || d > limit {
 			return c.down128(u128{0, x}, floor, limit, d, h, u128{0, pk})
 		}
@@ -356,38 +375,109 @@ func (c *censor) down128(x u128, floor, limit, d, h uint64, pk u128) (uint64, ui
 	return x.lo, d, h, pk, true
 }
 
-// land follows n until it falls below floor (n < floor: n itself), then
-// takes the steps that lead from an unstored number to a smaller one
-// (halvings, and for 3n+b the two steps of the class r4 mod 4, which end
-// below the number), and returns the index of the memo entry it lands on,
-// with the steps, odd steps and peak so far. ok is false when the exact
-// path must take n. The entry is read apart (see censusRun.run), so that
-// the reads of many numbers overlap.
+// land follows n until it falls below floor (n < floor: n itself) and
+// its odd part, and returns the index of the memo entry it lands on, with
+// the steps, odd steps and peak so far. ok is false when the exact path
+// must take n. The entry is read apart (see censusRun.run), so that the
+// reads of many numbers overlap.
+//
+// Two cases end at once and are told apart by n mod 4, which the
+// processor predicts as n counts up: an even n below 2*floor, whose half
+// is below floor, and for 3n+b an odd n of the class r4 mod 4, whose
+// step 3n+b is divisible by 4, when (3n+b)/4 is below floor. Every other
+// n takes the loop of down.
 func (c *censor) land(n, floor uint64) (idx, d, h uint64, pk u128, ok bool) {
 	x := n
-	if n >= floor {
-		x, d, h, pk, ok = c.down(n, floor, min(c.cap, 1<<16))
-		if !ok {
+	pk = u128{0, n}
+	switch {
+	case n < floor, n&1 == 0 && n>>1 < floor:
+	case n&3 == c.r4 && n <= c.lim64 && (3*n+uint64(c.b))>>2 < floor:
+		x = 3*n + uint64(c.b)
+		pk = u128{0, x}
+		h = 1
+	default:
+		if x, d, h, pk, ok = c.down(n, floor, min(c.cap, 1<<16)); !ok {
 			return 0, 0, 0, u128{}, false
 		}
-	} else {
-		pk = u128{0, n}
 	}
-	for {
-		tz := uint64(bits.TrailingZeros64(x)) // x >= 1
-		x >>= tz
-		d += tz
-		if x < c.smallN {
-			return x, d, h, pk, true
+	tz := uint64(bits.TrailingZeros64(x)) // x >= 1
+	x >>= tz
+	d += tz
+	return c.index(x), d, h, pk, true
+}
+
+// censusJumpBits is the number of steps the table of down takes at once.
+const censusJumpBits = 10
+
+// censusJumpEntry is what k = censusJumpBits steps do to every x = 2^k*q + r,
+// by the identity T^i(2^k*q + r) = 2^(k-i)*a^(s_i)*q + T^i(r), i <= k, s_i
+// the odd steps among the first i of r (SPEC.md, section 1): T^k(x) =
+// mul*q + add, with odd of the k steps odd, and every T^i(x) at most
+// peakM*q + peakD; so every value of the standard trajectory over the k
+// steps (x, and a*T^i(x) + b = 2*T^(i+1)(x) on an odd step) is at most
+// 2*(peakM*q + peakD).
+type censusJumpEntry struct {
+	mul, add     uint64
+	peakM, peakD uint64
+	odd          uint64
+}
+
+// censusJumpTable builds the table, or returns nil when an entry does not fit
+// 64 bits (a large multiplier).
+func censusJumpTable(m cert.Map) []censusJumpEntry {
+	const k = censusJumpBits
+	a, b := big.NewInt(int64(m.A)), big.NewInt(int64(m.B))
+	fits := func(x *big.Int) bool { return x.Sign() >= 0 && x.BitLen() <= 62 }
+	t := make([]censusJumpEntry, 1<<k)
+	for r := range t {
+		x, pow, s := big.NewInt(int64(r)), big.NewInt(1), uint64(0)
+		peakM, peakD := new(big.Int).Lsh(big.NewInt(1), k), big.NewInt(int64(r))
+		for i := 1; i <= k; i++ {
+			if x.Bit(0) == 1 {
+				x.Mul(x, a).Add(x, b)
+				pow.Mul(pow, a)
+				s++
+			}
+			x.Rsh(x, 1)
+			if f := new(big.Int).Lsh(pow, uint(k-i)); f.Cmp(peakM) > 0 {
+				peakM = f
+			}
+			if x.Cmp(peakD) > 0 {
+				peakD = new(big.Int).Set(x)
+			}
 		}
-		if c.shift != 2 || x&3 != c.r4 {
-			return c.smallN + x>>c.shift, d, h, pk, true
+		if !fits(pow) || !fits(x) || !fits(peakM) || !fits(peakD) {
+			return nil
 		}
-		y := 3*x + uint64(c.b)
-		pk = maxU128(pk, u128{0, y})
-		x = y >> 2
-		d += 2
-		h++
+		t[r] = censusJumpEntry{mul: pow.Uint64(), add: x.Uint64(), peakM: peakM.Uint64(), peakD: peakD.Uint64(), odd: s}
+	}
+	return t
+}
+
+// setJumpMin lets down jump from the numbers above 2^k times the largest
+// smallest member of a cycle found so far. A jump passes over values
+// without looking at them, and by "Fates" the orbit must not pass over
+// the smallest member of a cycle before it lands on the memo: every value
+// within k steps of x is above x/2^k, so above every such member found;
+// and when it is called, every smallest member below the floor of the
+// numbers to follow has been found, since the memo has an entry, decided
+// by the exact path, for each (a smallest member never falls below
+// itself). A smallest member at or above the floor is never passed over
+// either: the orbit lands below the floor, and the orbit of a smallest
+// member never goes below it.
+func (c *censor) setJumpMin() {
+	c.jumpMin = ^uint64(0)
+	if c.jump == nil {
+		return
+	}
+	most := new(big.Int)
+	for _, cy := range c.cycles.snapshot() {
+		if cy.min.Cmp(most) > 0 {
+			most = cy.min
+		}
+	}
+	if m := new(big.Int).Add(most, big.NewInt(1)); m.BitLen()+censusJumpBits < 64 {
+		c.jumpMin = m.Uint64() << censusJumpBits
 	}
 }
 
@@ -396,7 +486,7 @@ func (c *censor) index(x uint64) uint64 {
 	if x < c.smallN {
 		return x
 	}
-	return c.smallN + x>>c.shift
+	return c.smallN + x>>1
 }
 
 // combine finishes a number that landed on entry e after d steps, h of
@@ -454,6 +544,7 @@ func (c *censor) fillSmall() error {
 			if f.decided {
 				pb = f.peak.BitLen()
 			}
+			c.setJumpMin() // it may have found a cycle
 		}
 		c.mem[x] = packEntry(f, pb)
 	}
