@@ -84,9 +84,9 @@ func (c *cycleCensusAcc) setFirst(delay, off uint64) {
 }
 
 // add counts the decided number at offset off, which must follow every
-// number added before, with d steps of T, h of them odd, and a peak of bit
-// length peakBits (or peakUnknown). It reports whether the number may be a
-// path record, which it is only if its peak has at least the bit length of
+// number added before, with d steps of T, h of them odd, and a peak below
+// 2^peakBits (peakUnknown: unbounded). It reports whether the number may
+// be a path record, which it is only if its peak reaches the bit length of
 // the largest so far: the caller then works the peak out for path.
 func (c *cycleCensusAcc) add(off, d, h uint64, peakBits int) bool {
 	if d < uint64(len(c.rows)) {

@@ -18,12 +18,13 @@ import (
 //
 // Two ways compute it here. The exact path (exactFate) follows the orbit
 // with math/big, recognising the smallest members of the cycles found so
-// far, and otherwise decides by the constant-memory passes of the spec.
-// The fast path follows n in 64 and 128 bits until it falls below a bound
-// and reads the rest from a memo of smaller numbers; every operation that
-// could exceed 128 bits, every orbit that does not fall, and every memo
-// entry that cannot hold its number's fate hands the number to the exact
-// path. The memo is a cache: its size never changes a byte of the output.
+// far, and otherwise finds the orbit's cycle by Brent's method (a checker
+// uses the constant-memory passes of the spec instead). The fast path
+// follows n in 64 and 128 bits until it falls below a bound and reads the
+// rest from a memo of smaller numbers; every operation that could exceed
+// 128 bits, every orbit that does not fall, and every memo entry that
+// cannot hold its number's fate hands the number to the exact path. The
+// memo is a cache: its size never changes a byte of the output.
 
 // fate is what the census states about one number.
 type fate struct {
@@ -33,11 +34,10 @@ type fate struct {
 	peak    *big.Int
 }
 
-// cycleInfo is a cycle found by the exact path: its smallest member and
-// period, with both within the census's bounds.
+// cycleInfo is a cycle found by the exact path, with its period and
+// members within the census's bounds: its smallest member.
 type cycleInfo struct {
-	min    *big.Int
-	period uint64
+	min *big.Int
 }
 
 // cycleRegistry holds the cycles found so far. Readers take a snapshot
@@ -55,7 +55,7 @@ func (r *cycleRegistry) snapshot() []cycleInfo {
 }
 
 // add registers a cycle, if new, and returns its index.
-func (r *cycleRegistry) add(min *big.Int, period uint64) int {
+func (r *cycleRegistry) add(min *big.Int) int {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	cur := r.snapshot()
@@ -64,7 +64,7 @@ func (r *cycleRegistry) add(min *big.Int, period uint64) int {
 			return i
 		}
 	}
-	next := append(append([]cycleInfo{}, cur...), cycleInfo{min: new(big.Int).Set(min), period: period})
+	next := append(append([]cycleInfo{}, cur...), cycleInfo{min: new(big.Int).Set(min)})
 	r.list.Store(&next)
 	return len(next) - 1
 }
@@ -81,8 +81,8 @@ type censor struct {
 	cycles  cycleRegistry
 	work    *meter
 
-	// The memo: an entry for every x < smallN, and for the stored x in
-	// [smallN, bound) (see stored).
+	// The memo: an entry for every x < smallN, and for every odd x in
+	// [smallN, bound).
 	smallN, bound uint64
 	mem           []uint32 // the entries of x < smallN, then of the odd x >= smallN (index)
 	r4            uint64   // for 3n+b, the odd class mod 4 whose step is followed by a halving: 3r + b = 0 mod 4; else 4
@@ -93,13 +93,14 @@ type censor struct {
 }
 
 // Memo entries: d+1 in bits 0..11 (0: not held, the number takes the exact
-// path; 4095: undecided), h in bits 12..22, the bit length of the peak in
-// bits 23..29 (127: 127 or more), the cycle in bits 30..31.
+// path; 4095: undecided), h in bits 12..22, in bits 23..29 a bound on the
+// peak's bit length (the peak is below 2^bound; 127: no bound), the cycle
+// in bits 30..31.
 const (
 	eDMax       = 4093 // the largest d an entry holds
 	eUndecided  = 4095
 	eHMax       = 1<<11 - 1
-	ePeakBitsOK = 127 // bit lengths below it are exact
+	ePeakBitsOK = 127 // bounds below it are kept
 	eCycles     = 4
 )
 
@@ -235,7 +236,7 @@ func (c *censor) settle(n, y *big.Int, p uint64) fate {
 			h++
 		}
 	}
-	return fate{decided: true, cyc: c.cycles.add(m, p), d: d, h: h, peak: peak}
+	return fate{decided: true, cyc: c.cycles.add(m), d: d, h: h, peak: peak}
 }
 
 // peakOf returns the peak of n, which reaches its cycle's smallest member
@@ -490,9 +491,10 @@ func (c *censor) index(x uint64) uint64 {
 }
 
 // combine finishes a number that landed on entry e after d steps, h of
-// them odd, with the peak pk so far. It returns the fate (with the peak
-// left nil) and the peak's bit length, or peakUnknown. ok is false when
-// the entry does not hold its number's fate: the exact path must take n.
+// them odd, with a bound pk on the peak so far. It returns the fate (with
+// the peak left nil) and a bound on the peak's bit length, or peakUnknown.
+// ok is false when the entry does not hold its number's fate: the exact
+// path must take n.
 func (c *censor) combine(e uint32, d, h uint64, pk u128) (f fate, peakBits int, ok bool) {
 	switch e & 0xfff {
 	case 0:
