@@ -378,9 +378,9 @@ func (h *CensusHeader) Marshal() ([]byte, error) {
 	return appendPreamble(nil, KindCensus, h.Blocks, body), nil
 }
 
-// CensusMaxSpan is the most numbers a census may cover (hi - lo < 2^64),
-// so that every count it states fits a varint.
-var CensusMaxSpan = new(big.Int).Lsh(big.NewInt(1), 64)
+// CensusSpanOK says whether a census may cover [lo, hi): fewer than 2^64
+// numbers, so that every count it states fits a varint.
+func CensusSpanOK(lo, hi *big.Int) bool { return new(big.Int).Sub(hi, lo).BitLen() <= 64 }
 
 func (h *CensusHeader) validate() error {
 	if err := h.Map.Validate(); err != nil {
@@ -395,7 +395,7 @@ func (h *CensusHeader) validate() error {
 		return fmt.Errorf("block exponent %d: want %d to %d", h.E, MinCensusBlockExp, MaxCensusBlockExp)
 	case h.Lo == nil || h.Hi == nil || h.Lo.Sign() <= 0 || h.Lo.Cmp(h.Hi) >= 0 || natLen(h.Hi) > MaxNatBytes:
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", h.Lo, h.Hi)
-	case new(big.Int).Sub(h.Hi, h.Lo).Cmp(CensusMaxSpan) >= 0:
+	case !CensusSpanOK(h.Lo, h.Hi):
 		return fmt.Errorf("range [%v, %v): a census covers fewer than 2^64 numbers", h.Lo, h.Hi)
 	case h.Hi.Cmp(new(big.Int).Lsh(big.NewInt(1), uint(h.Ceiling))) > 0:
 		return fmt.Errorf("range [%v, %v): every number must lie below the ceiling 2^%d", h.Lo, h.Hi, h.Ceiling)

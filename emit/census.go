@@ -80,7 +80,7 @@ func NormalizeCensus(p *CensusParams) error {
 		return fmt.Errorf("range [%v, %v): want 1 <= from < to", p.Lo, p.Hi)
 	case p.Hi.BitLen() > 8*cert.MaxNatBytes:
 		return fmt.Errorf("to = %v: the format carries numbers of at most %d bits", p.Hi, 8*cert.MaxNatBytes)
-	case new(big.Int).Sub(p.Hi, p.Lo).Cmp(cert.CensusMaxSpan) >= 0:
+	case !cert.CensusSpanOK(p.Lo, p.Hi):
 		return fmt.Errorf("range [%v, %v): a census covers fewer than 2^64 numbers", p.Lo, p.Hi)
 	case p.E < cert.MinCensusBlockExp || p.E > cert.MaxCensusBlockExp:
 		return fmt.Errorf("block exponent %d: want %d to %d", p.E, cert.MinCensusBlockExp, cert.MaxCensusBlockExp)
