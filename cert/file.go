@@ -87,7 +87,7 @@ func parsePreamble(b []byte) (preamble, error) {
 		return p, versionErr(b[8])
 	}
 	p.kind = b[9]
-	if p.kind != KindSieve && p.kind != KindJoins && p.kind != KindRange && p.kind != KindShard {
+	if p.kind != KindSieve && p.kind != KindJoins && p.kind != KindRange && p.kind != KindShard && p.kind != KindCensus {
 		return p, formatErr(9, "unknown certificate kind %q", p.kind)
 	}
 	records := binary.BigEndian.Uint32(b[10:])

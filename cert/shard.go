@@ -11,10 +11,10 @@ const KindShard = 'h'
 
 // ShardHeader is the kind 'h' header.
 type ShardHeader struct {
-	Whole        byte   // the kind of the whole certificate: KindSieve or KindRange
+	Whole        byte   // the kind of the whole certificate: KindSieve, KindJoins, KindRange or KindCensus
 	Index, Of    int    // shard Index of Of (0 <= Index < Of)
 	First, Count int    // the global records it holds
-	WholeHeader  []byte // the whole's header; for a range, with totals zero
+	WholeHeader  []byte // the whole's header; for a range or a census, with totals zero
 }
 
 // ShardSpan gives the records of shard i of n over r records: the
@@ -45,7 +45,7 @@ func (h *ShardHeader) validate() error {
 		return fmt.Errorf("shard: the whole's header: %v", err)
 	}
 	switch {
-	case p.kind != h.Whole || (h.Whole != KindSieve && h.Whole != KindJoins && h.Whole != KindRange):
+	case p.kind != h.Whole || (h.Whole != KindSieve && h.Whole != KindJoins && h.Whole != KindRange && h.Whole != KindCensus):
 		return fmt.Errorf("shard: a whole of kind %q with a header of kind %q", h.Whole, p.kind)
 	case len(h.WholeHeader) != PreambleSize+p.bodyLen:
 		return fmt.Errorf("shard: the whole's header is cut")
@@ -95,6 +95,8 @@ func ParseShardHeader(b []byte) (*ShardHeader, error) {
 		_, err = ParseSieveHeader(h.WholeHeader)
 	case KindRange:
 		_, err = ParseRangeHeader(h.WholeHeader)
+	case KindCensus:
+		_, err = ParseCensusHeader(h.WholeHeader)
 	}
 	if err != nil {
 		return nil, formatErr(PreambleSize+21, "the whole's header: %v", err)

@@ -114,8 +114,8 @@ type journalFile struct {
 	v1     bool
 }
 
-// parseJournal reads a journal whose blocks carry rules rule counts.
-func parseJournal(data []byte, rules int) (*journalFile, bool) {
+// parseJournal reads a journal whose block records valid accepts.
+func parseJournal(data []byte, valid func([]byte) bool) (*journalFile, bool) {
 	jf := &journalFile{}
 	pos := len(journalMagic) + blake2b.Size256
 	switch {
@@ -155,7 +155,7 @@ func parseJournal(data []byte, rules int) (*journalFile, bool) {
 			break // cut short by a crash
 		}
 		rec := data[pos+4 : pos+4+int(n)]
-		if _, err := cert.ParseBlock(rec, 0, rules); err != nil {
+		if !valid(rec) {
 			break
 		}
 		jf.recs = append(jf.recs, rec)
@@ -176,6 +176,34 @@ func parseJournal(data []byte, rules int) (*journalFile, bool) {
 // left alone, with a *JournalConflictError. The journal is locked while
 // open: ErrBusy means that another run is using it.
 func OpenJournal(path string, p RangeParams, sh *Shard) (*Journal, [][]byte, error) {
+	return openJournal(path, journalDigest(p, sh), journalWords(p, sh), func(rec []byte) bool {
+		_, err := cert.ParseBlock(rec, 0, len(p.Rules))
+		return err == nil
+	})
+}
+
+// OpenCensusJournal is OpenJournal for a census run with parameters p
+// (defaults filled in by NormalizeCensus).
+func OpenCensusJournal(path string, p CensusParams, sh *Shard) (*Journal, [][]byte, error) {
+	d, _ := blake2b.New256(nil)
+	fmt.Fprintf(d, "descent census journal v1\x00%v\x00%v\x00%v\x00%d\x00%d\x00%d", p.Map, p.Lo, p.Hi, p.E, p.Cap, p.Ceiling)
+	words := fmt.Sprintf("census of %v from %v to %v, blocks of 2^%d, cap %d, ceiling 2^%d", p.Map, p.Lo, p.Hi, p.E, p.Cap, p.Ceiling)
+	if sh != nil {
+		fmt.Fprintf(d, "\x00shard %d/%d", sh.I, sh.N)
+		words += fmt.Sprintf(", shard %d/%d", sh.I, sh.N)
+	}
+	if len(words) > maxJournalText {
+		words = words[:maxJournalText]
+	}
+	return openJournal(path, d.Sum(nil), words, func(rec []byte) bool {
+		_, err := cert.ParseCensusBlock(rec, 0)
+		return err == nil
+	})
+}
+
+// openJournal opens a journal of the run whose parameters hash to digest
+// and read as words; valid accepts the run's block records.
+func openJournal(path string, digest []byte, words string, valid func([]byte) bool) (*Journal, [][]byte, error) {
 	// Only a regular file is a journal: never follow a link, nor open a
 	// device or a pipe, which the run would write to and then remove.
 	if fi, err := os.Lstat(path); err == nil && !fi.Mode().IsRegular() {
@@ -194,14 +222,13 @@ func OpenJournal(path string, p RangeParams, sh *Shard) (*Journal, [][]byte, err
 		return nil, nil, fmt.Errorf("%s: %w", path, err)
 	}
 	j := &Journal{f: f}
-	digest := journalDigest(p, sh)
 	data, err := io.ReadAll(f)
 	if err != nil {
 		f.Close()
 		return nil, nil, err
 	}
 	if len(data) > 0 {
-		jf, ok := parseJournal(data, len(p.Rules))
+		jf, ok := parseJournal(data, valid)
 		switch {
 		case !ok:
 			f.Close()
@@ -228,7 +255,6 @@ func OpenJournal(path string, p RangeParams, sh *Shard) (*Journal, [][]byte, err
 		}
 	}
 	head := append([]byte(journalMagic), digest...)
-	words := journalWords(p, sh)
 	head = binary.BigEndian.AppendUint32(head, uint32(len(words)))
 	head = append(head, words...)
 	if err := f.Truncate(0); err != nil {

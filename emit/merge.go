@@ -40,6 +40,8 @@ func kindWords(k byte) string {
 		return "a sieve certificate with joins"
 	case cert.KindRange:
 		return "a range certificate"
+	case cert.KindCensus:
+		return "a census certificate"
 	case cert.KindShard:
 		return "a shard"
 	}
@@ -161,6 +163,36 @@ func Merge(w io.WriterAt, shards []ShardInput) (*RangeResult, cert.Hash, error) 
 			return nil, cert.Hash{}, err
 		}
 		res = &RangeResult{Header: h}
+	}
+	if first.h.Whole == cert.KindCensus {
+		// A census's totals likewise: its tables summed and records merged.
+		h, err := cert.ParseCensusHeader(header)
+		if err != nil {
+			return nil, cert.Hash{}, err
+		}
+		t := newCensusTotals()
+		for k := 0; ; k++ {
+			r, err := next()
+			if err == io.EOF {
+				break
+			}
+			if err != nil {
+				return nil, cert.Hash{}, err
+			}
+			b, err := cert.ParseCensusBlock(r.rec, 0)
+			if err == nil {
+				err = h.CheckCensusBlockSpan(b, k, 0)
+			}
+			if err != nil {
+				return nil, cert.Hash{}, fmt.Errorf("block %d: %w", k, err)
+			}
+			t.add(b)
+			buffered = append(buffered, r)
+		}
+		h.Totals = t.summary()
+		if header, err = h.Marshal(); err != nil {
+			return nil, cert.Hash{}, err
+		}
 	}
 	cw, err := cert.NewWriter(w, header)
 	if err != nil {

@@ -79,6 +79,10 @@ func (c *cli) check(args []string) int {
 	}
 	status := exitOK
 	for _, path := range fs.Args() {
+		if c.censusNotCheckable(path) {
+			status = max(status, exitUsage)
+			continue
+		}
 		var rep *check.Report
 		update, finish := c.progress("records")
 		o.Progress = nil

@@ -15,12 +15,15 @@ func (c *cli) emit(ctx context.Context, args []string) int {
 	if len(args) > 0 && args[0] == "range" {
 		return c.emitRange(ctx, args[1:])
 	}
+	if len(args) > 0 && args[0] == "census" {
+		return c.emitCensus(ctx, args[1:])
+	}
 	if len(args) > 0 && (args[0] == "-h" || args[0] == "-help" || args[0] == "--help") {
-		fmt.Fprintf(c.stdout, "usage: %s\n\nRun 'descent emit sieve -h' or 'descent emit range -h' for the flags.\n", strings.Join(synopsis("emit"), "\n       "))
+		fmt.Fprintf(c.stdout, "usage: %s\n\nRun 'descent emit sieve -h', 'descent emit range -h' or 'descent emit census -h' for the flags.\n", strings.Join(synopsis("emit"), "\n       "))
 		return exitOK
 	}
 	if len(args) == 0 || args[0] != "sieve" {
-		c.errorf("emit: want a certificate kind first: descent emit sieve ... or descent emit range ...")
+		c.errorf("emit: want a certificate kind first: descent emit sieve ..., descent emit range ... or descent emit census ...")
 		return exitUsage
 	}
 	fs := c.flags("emit sieve")

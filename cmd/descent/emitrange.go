@@ -149,37 +149,15 @@ func (c *cli) runRange(ctx context.Context, r rangeRun) int {
 	}
 	journalPath := r.out + ".partial"
 	j, done, err := emit.OpenJournal(journalPath, p, r.shard)
-	if err != nil {
+	if !c.journalOpened("emit range", journalPath, j, len(done), err) {
 		f.abort()
-		c.journalError(journalPath, err)
 		return exitUsage
-	}
-	if j.Discarded != "" {
-		c.errorf("emit range: removed %s, the journal of an earlier run with other parameters that failed (%s)", journalPath, j.Discarded)
-	}
-	if len(done) > 0 {
-		if j.Failed != "" {
-			c.errorf("emit range: resuming after %d completed blocks from %s; the run that wrote them failed: %s", len(done), journalPath, j.Failed)
-		} else {
-			c.errorf("emit range: resuming after %d completed blocks from %s", len(done), journalPath)
-		}
 	}
 	if err := emit.CheckSieveRoot(ctx, sh, root, r.workers); err != nil {
 		f.abort()
-		return c.rangeStopped(ctx, j, r.out, fmt.Errorf("-sieve %s: %w", r.sievePath, err))
+		return c.runStopped(ctx, "emit range", j, r.out, fmt.Errorf("-sieve %s: %w", r.sievePath, err))
 	}
-	start, skipped := time.Now(), new(big.Int)
-	update, finish := c.progress("blocks")
-	var progress func(done, total int, numbers *big.Int)
-	if update != nil {
-		progress = func(d, total int, numbers *big.Int) {
-			if d <= len(done) {
-				skipped.Set(numbers)
-			}
-			rate, _ := new(big.Float).Quo(new(big.Float).SetInt(new(big.Int).Sub(numbers, skipped)), big.NewFloat(time.Since(start).Seconds()+1e-9)).Float64()
-			update(d, total, fmt.Sprintf("blocks, %.3g numbers/s", rate))
-		}
-	}
+	progress, finish := c.blockProgress(len(done))
 	res, err := emit.Range(ctx, f, p, emit.RangeOptions{Workers: r.workers, Done: done, Block: j.Append, Progress: progress, Shard: r.shard})
 	finish()
 	if err == nil {
@@ -188,7 +166,7 @@ func (c *cli) runRange(ctx context.Context, r rangeRun) int {
 		f.abort()
 	}
 	if err != nil {
-		return c.rangeStopped(ctx, j, r.out, err)
+		return c.runStopped(ctx, "emit range", j, r.out, err)
 	}
 	if err := j.Remove(); err != nil && !errors.Is(err, os.ErrNotExist) {
 		c.errorf("emit range: the certificate is written, but its journal %s could not be removed: %v", journalPath, reason(err))
@@ -203,14 +181,34 @@ func (c *cli) runRange(ctx context.Context, r rangeRun) int {
 	return exitOK
 }
 
-// rangeStopped reports a range run that stopped with err and keeps or
-// removes its journal: an interrupted run's blocks are kept for the same
-// command; a failed run's are kept too, marked so that a run with other
-// parameters removes them instead of refusing to start.
-func (c *cli) rangeStopped(ctx context.Context, j *emit.Journal, out string, err error) int {
+// blockProgress makes the progress bar of a run over blocks, the first
+// resumed of them taken from a journal: it shows the blocks done and the
+// rate of the numbers computed by this run. The progress function is nil
+// when stderr is no terminal.
+func (c *cli) blockProgress(resumed int) (func(done, total int, numbers *big.Int), func()) {
+	start, skipped := time.Now(), new(big.Int)
+	update, finish := c.progress("blocks")
+	if update == nil {
+		return nil, finish
+	}
+	return func(d, total int, numbers *big.Int) {
+		if d <= resumed {
+			skipped.Set(numbers)
+		}
+		rate, _ := new(big.Float).Quo(new(big.Float).SetInt(new(big.Int).Sub(numbers, skipped)), big.NewFloat(time.Since(start).Seconds()+1e-9)).Float64()
+		update(d, total, fmt.Sprintf("blocks, %.3g numbers/s", rate))
+	}, finish
+}
+
+// runStopped reports a range or census run (command cmd) that stopped
+// with err and keeps or removes its journal: an interrupted run's blocks
+// are kept for the same command; a failed run's are kept too, marked so
+// that a run with other parameters removes them instead of refusing to
+// start.
+func (c *cli) runStopped(ctx context.Context, cmd string, j *emit.Journal, out string, err error) int {
 	n := j.Blocks()
 	if errors.Is(err, context.Canceled) {
-		c.errorf("emit range: %v; nothing was written to %s", context.Cause(ctx), out)
+		c.errorf("%s: %v; nothing was written to %s", cmd, context.Cause(ctx), out)
 		if n == 0 {
 			j.Remove()
 		} else {
@@ -219,7 +217,7 @@ func (c *cli) rangeStopped(ctx context.Context, j *emit.Journal, out string, err
 		}
 		return stopStatus(ctx)
 	}
-	c.errorf("emit range: %v", err)
+	c.errorf("%s: %v", cmd, err)
 	if n > 0 {
 		c.hintf("%s keeps the %d completed blocks: the same command resumes from them; a run with other parameters removes them", j.Name(), n)
 	}
@@ -227,23 +225,45 @@ func (c *cli) rangeStopped(ctx context.Context, j *emit.Journal, out string, err
 	return exitUsage
 }
 
-// journalError explains why a range run cannot use its journal.
-func (c *cli) journalError(path string, err error) {
+// journalOpened says on stderr what opening the journal at path of a run
+// (command cmd) found: why it cannot be used (false: the run stops), an
+// earlier failed run's journal removed, or completed blocks to resume.
+func (c *cli) journalOpened(cmd, path string, j *emit.Journal, done int, err error) bool {
+	if err != nil {
+		c.journalError(cmd, path, err)
+		return false
+	}
+	if j.Discarded != "" {
+		c.errorf("%s: removed %s, the journal of an earlier run with other parameters that failed (%s)", cmd, path, j.Discarded)
+	}
+	if done > 0 {
+		if j.Failed != "" {
+			c.errorf("%s: resuming after %d completed blocks from %s; the run that wrote them failed: %s", cmd, done, path, j.Failed)
+		} else {
+			c.errorf("%s: resuming after %d completed blocks from %s", cmd, done, path)
+		}
+	}
+	return true
+}
+
+// journalError explains why a range or census run (command cmd) cannot
+// use its journal.
+func (c *cli) journalError(cmd, path string, err error) {
 	var conflict *emit.JournalConflictError
 	switch {
 	case errors.As(err, &conflict) && conflict.Old:
-		c.errorf("emit range: %v", err)
+		c.errorf("%s: %v", cmd, err)
 		c.hintf("finish that run with the version of descent that began it, or remove %s to start afresh", path)
 	case errors.As(err, &conflict):
-		c.errorf("emit range: %v", err)
+		c.errorf("%s: %v", cmd, err)
 		c.hintf("run that command again to resume it, or remove %s (or give another -o) to start this one", path)
 	case errors.Is(err, emit.ErrNotJournal):
-		c.errorf("emit range: %s, where this run keeps its journal, is not a descent journal", path)
+		c.errorf("%s: %s, where this run keeps its journal, is not a descent journal", cmd, path)
 		c.hintf("remove it, or give another -o")
 	case errors.Is(err, emit.ErrBusy):
-		c.errorf("emit range: another descent run is using %s now", path)
+		c.errorf("%s: another descent run is using %s now", cmd, path)
 		c.hintf("wait for it to finish, or give another -o")
 	default:
-		c.errorf("emit range: the journal %s: %v", path, reason(err))
+		c.errorf("%s: the journal %s: %v", cmd, path, reason(err))
 	}
 }

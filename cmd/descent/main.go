@@ -3,6 +3,7 @@
 //
 //	descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-ceiling W] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
 //	descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-ceiling W] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
+//	descent emit census -from LO -to HI [-map 3n+1] [-block E] [-cap N] [-ceiling W] [-shard i/N] [-workers N] [-replace] -o FILE
 //	descent merge [-replace] -o FILE SHARD...
 //	descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-budget STEPS] [-shard i/N] [-workers N] FILE...
 //	descent check -part P -root HEX [-json] [-sieve FILE] FILE
@@ -56,6 +57,7 @@ const (
 const usage = `usage:
   descent emit sieve [-k K] [-j J] [-map 3n+1] [-cap N] [-ceiling W] [-join] [-shard i/N] [-workers N] [-replace] -o FILE
   descent emit range -sieve FILE [-from LO] -to HI [-block E] [-cap N] [-ceiling W] [-rules auto] [-shard i/N] [-workers N] [-replace] -o FILE
+  descent emit census -from LO -to HI [-map 3n+1] [-block E] [-cap N] [-ceiling W] [-shard i/N] [-workers N] [-replace] -o FILE
   descent merge [-replace] -o FILE SHARD...
   descent check [-json] [-root HEX] [-sieve FILE] [-sample N [-seed S]] [-budget STEPS] [-shard i/N] [-workers N] FILE...
   descent check -part P -root HEX [-json] [-sieve FILE] FILE
@@ -72,6 +74,7 @@ const usage = `usage:
 
 emit sieve  write a certificate for the residue-class sieve mod 2^K
 emit range  write a certificate that every n in [LO, HI) drops or reaches a cycle
+emit census write a certificate of the delays, heights and records of [LO, HI)
 merge       put the shards of a certificate together, byte for byte as one run
 check       re-derive every claim of certificates and verify their hashes
 show        print the claim of a certificate in plain words

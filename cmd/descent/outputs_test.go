@@ -202,7 +202,7 @@ func TestOnlyOutputGoWritesFiles(t *testing.T) {
 func TestUsageListsEveryFlag(t *testing.T) {
 	flagRE := regexp.MustCompile(`(?:^|[\s\[])-([a-z]+)`)
 	defRE := regexp.MustCompile(`(?m)^  -([a-z]+)`)
-	for _, cmd := range []string{"emit sieve", "emit range", "merge", "check", "show"} {
+	for _, cmd := range []string{"emit sieve", "emit range", "emit census", "merge", "check", "show"} {
 		code, stdout, stderr := runCLI(append(strings.Fields(cmd), "-h")...)
 		require.Equal(t, exitOK, code, cmd)
 		require.Empty(t, stderr, cmd)
