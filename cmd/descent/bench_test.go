@@ -142,7 +142,7 @@ func BenchmarkJoins(b *testing.B) {
 			})
 			b.Run(name+"/check", func(b *testing.B) {
 				for range b.N {
-					if rep := check.File(path, check.Options{}); !rep.Valid {
+					if rep := newChecker(check.Options{}, "", false).file(path); !rep.Valid {
 						b.Fatal(rep.Err())
 					}
 				}
@@ -158,7 +158,7 @@ func BenchmarkCheck(b *testing.B) {
 			res := emitFile(b, k, path)
 			b.ResetTimer()
 			for range b.N {
-				if rep := check.File(path, check.Options{}); !rep.Valid {
+				if rep := newChecker(check.Options{}, "", false).file(path); !rep.Valid {
 					b.Fatal(rep.Err())
 				}
 			}

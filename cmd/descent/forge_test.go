@@ -16,7 +16,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/check"
+	"descent/check/kernel"
 )
 
 // Forgeries: certificates whose hashes and root are recomputed after a
@@ -342,8 +342,8 @@ func checkRangeJSON(t *testing.T, b []byte, sieve string, extra ...string) (int,
 	var rep map[string]any
 	require.NoError(t, json.Unmarshal([]byte(stdout), &rep), stdout)
 	if r, ok := rep["reason"].(string); ok {
-		_, listed := check.LookupReason(r)
-		require.True(t, listed, "reason %q, which JSON gives, is listed in check.Reasons", r)
+		_, listed := kernel.LookupReason(r)
+		require.True(t, listed, "reason %q, which JSON gives, is listed in kernel.Reasons", r)
 	}
 	return code, rep
 }

@@ -10,7 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/check"
+	"descent/check/kernel"
 )
 
 // joinCut is a sieve certificate with joins taken apart: for each chunk
@@ -200,8 +200,8 @@ func TestJoinForgeriesAreCaught(t *testing.T) {
 			require.Equal(t, exitInvalid, code, "%v", rep)
 			require.Equal(t, false, rep["valid"])
 			require.Equal(t, f.reason, rep["reason"], "%v", rep["error"])
-			_, listed := check.LookupReason(f.reason)
-			require.True(t, listed, "reason %q is listed in check.Reasons", f.reason)
+			_, listed := kernel.LookupReason(f.reason)
+			require.True(t, listed, "reason %q is listed in kernel.Reasons", f.reason)
 			require.NotEmpty(t, rep["where"])
 		})
 	}

@@ -20,6 +20,7 @@ import (
 
 	"descent/cert"
 	"descent/check"
+	"descent/check/kernel"
 )
 
 // Hostile test vectors (testdata/vectors): each file is one certificate
@@ -655,10 +656,14 @@ func TestVectors(t *testing.T) {
 		got["decoder"], _ = classify(v.data)
 		path := filepath.Join(dir, "v.dcert")
 		require.NoError(t, os.WriteFile(path, v.data, 0o644))
-		rep := check.Check(bytes.NewReader(v.data), check.Options{Sieve: sieves[v.sieve]})
+		rep := newChecker(check.Options{}, sieves[v.sieve], false).file(path)
 		got["check"] = checkClass(rep)
-		if _, listed := check.LookupReason(rep.Reason); rep.Reason != "" && !listed {
-			failures = append(failures, fmt.Sprintf("%s: reason %q is not listed in check.Reasons", v.name, rep.Reason))
+		// The kernel alone (check -reference) gives the same verdict and reason.
+		if ref := newChecker(check.Options{}, sieves[v.sieve], true).file(path); ref.Valid != rep.Valid || ref.Reason != rep.Reason {
+			failures = append(failures, fmt.Sprintf("%s: the kernel alone says %v %q (%v), the default checker %v %q (%v)", v.name, ref.Valid, ref.Reason, ref.Err(), rep.Valid, rep.Reason, rep.Err()))
+		}
+		if _, listed := kernel.LookupReason(rep.Reason); rep.Reason != "" && !listed {
+			failures = append(failures, fmt.Sprintf("%s: reason %q is not listed in kernel.Reasons", v.name, rep.Reason))
 		}
 		code, _, _ := runCLI("show", path)
 		got["show"] = map[int]string{exitOK: "ok", exitInvalid: "hash", exitUsage: "malformed"}[code]
@@ -696,14 +701,14 @@ func TestVectors(t *testing.T) {
 }
 
 // checkClass maps a checker report to a vector outcome.
-func checkClass(rep *check.Report) string {
+func checkClass(rep *Report) string {
 	err := rep.Err()
 	switch {
 	case err == nil:
 		return "valid"
-	case errors.Is(err, check.ErrLimits):
+	case errors.Is(err, kernel.ErrLimits):
 		return "limits"
-	case errors.Is(err, check.ErrMalformed):
+	case errors.Is(err, kernel.ErrMalformed):
 		return "malformed"
 	case rep.Reason == "hash" || rep.Reason == "tree" || rep.Reason == "root":
 		return "hash"
