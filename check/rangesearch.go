@@ -63,13 +63,14 @@ type searcher struct {
 	limHi uint64 // below it (high word of x) a step stays within 128 bits
 	half  uint64 // (a-1)/2
 	inc   int64  // (b+1)/2
+	joins bool   // the sieve has joins
 }
 
 // newSearcher sets up the search of the blocks of r.
 func newSearcher(r *kernel.Range) *searcher {
 	h := r.H
 	s := &searcher{r: r, h: h, k: h.K, d: r.P.D, half: uint64(h.A-1) / 2, inc: (int64(h.B) + 1) / 2,
-		limHi: ^uint64(0)/uint64(h.A) - 1, a: big.NewInt(int64(h.A)), b: big.NewInt(int64(h.B))}
+		limHi: ^uint64(0)/uint64(h.A) - 1, a: big.NewInt(int64(h.A)), b: big.NewInt(int64(h.B)), joins: r.Sieve.Header.Joins}
 	p := big.NewInt(1)
 	for i := 0; i <= h.K; i++ {
 		s.pow = append(s.pow, new(big.Int).Set(p))
@@ -311,7 +312,7 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		return
 	}
 	n, off := p.inClass(res, s.k)
-	if s.r.Sieve.Joined(res) {
+	if s.joins && s.r.Sieve.Joined(res) {
 		// Every member above N0 meets a smaller number after k steps.
 		p.t.counts[kernel.CJoin] += n
 		return

@@ -63,23 +63,23 @@ func TestBudgetRefusesBeforeTheWork(t *testing.T) {
 	// stopping times; no cycle or undecided number but n = 1).
 	b := vector(t, rangeVector)
 	o := Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert")}
-	rep := check(b, o)
+	rep := checkBytes(b, o)
 	require.NoError(t, rep.Err())
 	o.Budget = 1 << 20
-	rep = check(b, o)
+	rep = checkBytes(b, o)
 	require.ErrorIs(t, rep.Err(), ErrLimits)
 	require.Equal(t, ReasonLimits, rep.Failure.Reason)
 	require.Contains(t, rep.Err().Error(), "more than the budget of 1048576")
 	// An audit of one block needs less than the whole.
 	o.Sample, o.Seed = 1, "a seed"
-	rep = check(b, o)
+	rep = checkBytes(b, o)
 	require.NoError(t, rep.Err())
 
 	// A sieve: E*j + 3*C*X = 46*12 + 3*100000*1 for 3n+1 with j = 12.
 	s := vector(t, "sieve-3n+1-k12.dcert")
-	rep = check(s, Options{Budget: 300000})
+	rep = checkBytes(s, Options{Budget: 300000})
 	require.ErrorIs(t, rep.Err(), ErrLimits)
-	rep = check(s, Options{Budget: 300000 + 46*12})
+	rep = checkBytes(s, Options{Budget: 300000 + 46*12})
 	require.NoError(t, rep.Err())
 }
 
@@ -106,12 +106,12 @@ func TestEveryReasonHasOneClass(t *testing.T) {
 func TestProgressReachesTheEnd(t *testing.T) {
 	var last, total int
 	o := Options{Progress: func(d, n int) { last, total = d, n }}
-	rep := check(vector(t, "sieve-3n+1-k12.dcert"), o)
+	rep := checkBytes(vector(t, "sieve-3n+1-k12.dcert"), o)
 	require.NoError(t, rep.Err())
 	require.Positive(t, total)
 	require.Equal(t, total, last)
 	o.Sieve = sieveOf(t, "sieve-3n+1-k12.dcert")
-	rep = check(vector(t, rangeVector), o)
+	rep = checkBytes(vector(t, rangeVector), o)
 	require.NoError(t, rep.Err())
 	require.Equal(t, 64, total, "the blocks of the range")
 	require.Equal(t, total, last)
@@ -122,10 +122,17 @@ func TestRangeOnASieveWithJoins(t *testing.T) {
 	// members above N0 of the joined classes (3, counted here from the
 	// sieve's own join sections) are justified by the join.
 	b := vector(t, "range-3n+1-k8-joins-to-2^16.dcert")
-	rep := check(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k8-joins.dcert")})
+	rep := checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k8-joins.dcert")})
 	require.NoError(t, rep.Err())
-	sieve := check(vector(t, "sieve-3n+1-k8-joins.dcert"), Options{}).Sieve
-	require.Len(t, sieve.joined, 3)
+	sieve, fl := sieveOf(t, "sieve-3n+1-k8-joins.dcert")(rep.File.Range.SieveRoot)
+	require.Nil(t, fl)
+	var joined []uint64
+	for r := range uint64(1 << 8) {
+		if sieve.Joined(r) {
+			joined = append(joined, r)
+		}
+	}
+	require.Len(t, joined, 3)
 	// Each joined class mod 2^8 has 2^8 members in [1, 2^16), less those
 	// at or below N0 (46 for 3n+1 with k = 8: s = 5 odd steps close at
 	// t = 8, floor(5*243/(2*13)) = 46), none here: the joined residues lie

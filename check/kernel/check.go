@@ -7,7 +7,6 @@ import (
 	"fmt"
 	"io"
 	"math/big"
-	"slices"
 	"strconv"
 	"strings"
 )
@@ -64,7 +63,6 @@ type Result struct {
 	Audit     *Audit
 	Undecided []*big.Int // a range's undecided numbers, from its records
 	Below     []Fate     // what the numbers below a range from 1 or 2 reach; nil: not derived
-	Sieve     *Sieve     // a whole sieve checked in full: what a range takes
 	Failure   *Failure
 }
 
@@ -106,7 +104,11 @@ func sequential(n int, work func(int) (*Tally, *Failure), take func(*Tally)) *Fa
 }
 
 // Check checks the certificate of size bytes in r.
-func Check(r io.ReaderAt, size int64, o Options) *Result {
+func Check(r io.ReaderAt, size int64, o Options) *Result { return check(r, size, o, nil) }
+
+// check checks a certificate; a whole sieve checked in full is put in
+// *sieve, if given, with its joins.
+func check(r io.ReaderAt, size int64, o Options, sieve **Sieve) *Result {
 	res := &Result{Mode: ModeFull}
 	if o.Span != nil {
 		res.Mode = ModeShare
@@ -128,7 +130,7 @@ func Check(r io.ReaderAt, size int64, o Options) *Result {
 			from, upto = spanOf(o.Span.I, o.Span.N, f.Records)
 			res.Span = &SpanResult{o.Span.I, o.Span.N, f.base() + from, upto - from}
 		}
-		fl = res.claims(f, o, from, upto)
+		fl = res.claims(f, o, from, upto, sieve)
 	}
 	res.Failure = fl
 	return res
@@ -144,12 +146,13 @@ func (f *File) base() int {
 
 // claims checks the claims of the records [from, upto) of the file, and,
 // as far as the file allows, of its header (steps 5 to 11).
-func (res *Result) claims(f *File, o Options, from, upto int) *Failure {
+func (res *Result) claims(f *File, o Options, from, upto int, sieve **Sieve) *Failure {
 	if f.Range != nil {
 		return res.rangeClaims(f, o, from, upto)
 	}
 	h, base, whole := f.Sieve, f.base(), f.Records
 	p := NewParams(h.Map, h.J)
+	p.keep = sieve != nil
 	if fl := p.sieveWork(h, budget(o)); fl != nil {
 		return fl
 	}
@@ -197,6 +200,7 @@ func (res *Result) claims(f *File, o Options, from, upto int) *Failure {
 		}
 		tally.add(top)
 	}
+	var joined [][]uint64 // chunk by chunk
 	done, last := 0, f.Records
 	if res.Mode == ModePart {
 		last = upto
@@ -222,6 +226,9 @@ func (res *Result) claims(f *File, o Options, from, upto int) *Failure {
 		if !partial {
 			tally.add(t)
 		}
+		if sieve != nil && len(t.Joined) > 0 {
+			joined = append(joined, t.Joined)
+		}
 		if done++; o.Progress != nil {
 			o.Progress(done, upto-max(from, first))
 		}
@@ -243,16 +250,15 @@ func (res *Result) claims(f *File, o Options, from, upto int) *Failure {
 	if fl := p.exceptions(h); fl != nil {
 		return fl
 	}
-	if !partial {
-		slices.Sort(tally.Joined)
-		res.Sieve = &Sieve{Root: f.Root(), Header: h, joined: tally.Joined}
+	if sieve != nil && !partial {
+		*sieve = &Sieve{Root: f.Root(), Header: h, chunks: joined}
 	}
 	return nil
 }
 
 func (t *Tally) add(u *Tally) {
 	t.Survivors += u.Survivors
-	t.Joined = append(t.Joined, u.Joined...)
+	t.joins += u.joins
 	for i, c := range u.Closed {
 		t.Closed[i] += c
 	}
@@ -265,7 +271,7 @@ func (t *Tally) counts(h *SieveHeader, joins bool) *Failure {
 		return invalid(ReasonCount, Where{Claim: "survivors", Expected: strconv.FormatUint(got, 10), Found: strconv.FormatUint(h.Survivors, 10)},
 			"the header counts %d survivors mod 2^%d; the chunks hold %d", h.Survivors, h.K, got)
 	}
-	if got := uint64(len(t.Joined)); joins && h.Joins && got != h.Joined {
+	if got := t.joins; joins && h.Joins && got != h.Joined {
 		return invalid(ReasonCount, Where{Claim: "joined survivors", Expected: strconv.FormatUint(got, 10), Found: strconv.FormatUint(h.Joined, 10)},
 			"the header counts %d joined survivors; the chunks hold %d joins", h.Joined, got)
 	}
@@ -351,7 +357,7 @@ func Part(r io.ReaderAt, size int64, part string, root Hash, o Options) *Result 
 		return res.fail(or(fl, invalid(ReasonAudit, Where{Claim: "header", Expected: root.String()},
 			"the header with its audit path does not lead to the root %s: another certificate, or an altered one", root)))
 	}
-	return res.fail(res.claims(f, o, from, upto))
+	return res.fail(res.claims(f, o, from, upto, nil))
 }
 
 func (res *Result) fail(fl *Failure) *Result {
@@ -375,10 +381,10 @@ func RangeSieve(r io.ReaderAt, size int64, name string, named Hash, o Options) (
 	if fl == nil && (f.Sieve == nil || f.Shard != nil) {
 		return nil, invalid(ReasonSieve, Where{Claim: "sieve root", Expected: named.String()}, "the certificate rests on the sieve %s, but %s is not a whole sieve certificate", named, name)
 	}
-	res := Check(r, size, Options{Budget: o.Budget, Fast: o.Fast})
-	switch fl := res.Failure; {
+	var sv *Sieve
+	switch fl := check(r, size, Options{Budget: o.Budget, Fast: o.Fast}, &sv).Failure; {
 	case fl == nil:
-		return res.Sieve, nil
+		return sv, nil
 	case fl.Class == ErrInvalid:
 		return nil, invalid(ReasonSieve, Where{}, "the sieve certificate %s it rests on is not valid: %v", name, fl)
 	default:

@@ -138,7 +138,9 @@ func (p *Params) judge(i int, rec []byte, base int64, want *Stub, maxStubs int, 
 				if fl := p.join(w, r, deltas[x]); fl != nil {
 					return nil, fl
 				}
-				w.tally.Joined = append(w.tally.Joined, r)
+				if w.tally.joins++; p.keep {
+					w.tally.Joined = append(w.tally.Joined, r)
+				}
 			}
 		}
 	}
@@ -219,13 +221,12 @@ func (p *Params) join(w *walk, r, delta uint64) *Failure {
 	q := r - delta
 	s1, v1, b1 := p.afterK(r)
 	s2, v2, b2 := p.afterK(q)
-	claim := fmt.Sprintf("joins %d mod 2^%d", q, p.J)
-	switch {
+	switch claim := func() string { return fmt.Sprintf("joins %d mod 2^%d", q, p.J) }; {
 	case s1 != s2:
-		return invalid(ReasonJoin, w.where(r, p.J, claim, fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
+		return invalid(ReasonJoin, w.where(r, p.J, claim(), fmt.Sprintf("%d odd steps for both", s1), fmt.Sprintf("%d for the partner", s2)),
 			"after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", p.J, r, s1, q, p.J, s2)
 	case !(b1 == nil && b2 == nil && v1 == v2) && val(v1, b1).Cmp(val(v2, b2)) != 0:
-		return invalid(ReasonJoin, w.where(r, p.J, claim, "the same value after k steps", val(v1, b1).String()+" and "+val(v2, b2).String()),
+		return invalid(ReasonJoin, w.where(r, p.J, claim(), "the same value after k steps", val(v1, b1).String()+" and "+val(v2, b2).String()),
 			"T^%d(%d) = %v but T^%d(%d) = %v: the paths do not meet", p.J, r, val(v1, b1), p.J, q, val(v2, b2))
 	}
 	return nil

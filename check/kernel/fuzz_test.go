@@ -31,7 +31,7 @@ func FuzzCheck(f *testing.F) {
 	}
 	sieve := sieveOf(f, "sieve-3n+1-k12.dcert")
 	f.Fuzz(func(t *testing.T, b []byte) {
-		rep := check(b, Options{Sieve: sieve, Budget: fuzzBudget})
+		rep := checkBytes(b, Options{Sieve: sieve, Budget: fuzzBudget})
 		if err := rep.Err(); err != nil {
 			r, ok := LookupReason(rep.Failure.Reason)
 			if !ok {

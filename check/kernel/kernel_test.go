@@ -24,8 +24,8 @@ func vector(t testing.TB, name string) []byte {
 
 var valid = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert"}
 
-// check runs the kernel on a certificate in memory.
-func check(b []byte, o Options) *Result { return Check(bytes.NewReader(b), int64(len(b)), o) }
+// checkBytes runs the kernel on a certificate in memory.
+func checkBytes(b []byte, o Options) *Result { return Check(bytes.NewReader(b), int64(len(b)), o) }
 
 // sieveOf gives a range check the committed sieve certificate name.
 func sieveOf(t testing.TB, name string) func(Hash) (*Sieve, *Failure) {
@@ -37,9 +37,12 @@ func sieveOf(t testing.TB, name string) func(Hash) (*Sieve, *Failure) {
 
 func TestValidVectors(t *testing.T) {
 	for _, name := range valid {
-		rep := check(vector(t, name), Options{})
+		b := vector(t, name)
+		rep := checkBytes(b, Options{})
 		require.NoError(t, rep.Err(), name)
-		require.NotNil(t, rep.Sieve, name)
+		sv, fl := RangeSieve(bytes.NewReader(b), int64(len(b)), name, *rep.Root, Options{})
+		require.Nil(t, fl, name)
+		require.Equal(t, *rep.Root, sv.Root, name)
 	}
 }
 
@@ -80,10 +83,10 @@ func referenceRoot(t *testing.T, file []byte) string {
 }
 
 func TestWorkedExampleRoot(t *testing.T) {
-	rep := check(vector(t, "sieve-3n+1-k4.dcert"), Options{})
+	rep := checkBytes(vector(t, "sieve-3n+1-k4.dcert"), Options{})
 	require.Equal(t, referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")), rep.Root.String())
 	for _, name := range valid {
-		require.Equal(t, referenceRoot(t, vector(t, name)), check(vector(t, name), Options{}).Root.String(), name)
+		require.Equal(t, referenceRoot(t, vector(t, name)), checkBytes(vector(t, name), Options{}).Root.String(), name)
 	}
 	// SPEC.md, section 5: 3 survivors, one class closing at steps 1, 2 and 4.
 	require.EqualValues(t, 3, rep.File.Sieve.Survivors)
@@ -91,9 +94,9 @@ func TestWorkedExampleRoot(t *testing.T) {
 
 	root, err := ParseHash(rep.Root.String())
 	require.NoError(t, err)
-	require.NoError(t, check(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root}).Err())
+	require.NoError(t, checkBytes(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root}).Err())
 	root[0] ^= 1
-	rep = check(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root})
+	rep = checkBytes(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root})
 	require.ErrorIs(t, rep.Err(), ErrInvalid)
 	require.Equal(t, "root", rep.Failure.Reason)
 }
@@ -103,7 +106,7 @@ func TestEverySingleBitFlipIsRejected(t *testing.T) {
 	for i := range len(good) * 8 {
 		bad := bytes.Clone(good)
 		bad[i/8] ^= 0x80 >> (i % 8)
-		err := check(bad, Options{}).Err()
+		err := checkBytes(bad, Options{}).Err()
 		require.Error(t, err, "bit %d of byte %d flipped: accepted", i%8, i/8)
 		require.True(t, errors.Is(err, ErrInvalid) || errors.Is(err, ErrMalformed), "bit %d: %v", i, err)
 	}
@@ -111,7 +114,7 @@ func TestEverySingleBitFlipIsRejected(t *testing.T) {
 
 func malformedAt(t *testing.T, b []byte, what string) *Result {
 	t.Helper()
-	rep := check(b, Options{})
+	rep := checkBytes(b, Options{})
 	require.ErrorIs(t, rep.Err(), ErrMalformed, what)
 	require.Contains(t, rep.Err().Error(), "offset", what)
 	return rep
@@ -171,7 +174,7 @@ func TestLengthsBeyondTheFileAllocateLittle(t *testing.T) {
 	var before, after runtime.MemStats
 	runtime.GC()
 	runtime.ReadMemStats(&before)
-	rep := check(b, Options{})
+	rep := checkBytes(b, Options{})
 	runtime.ReadMemStats(&after)
 	require.ErrorIs(t, rep.Err(), ErrMalformed)
 	require.Contains(t, rep.Err().Error(), "offset 1024")

@@ -6,22 +6,31 @@ import (
 	"math/bits"
 	"slices"
 	"sort"
+	"sync"
 )
 
 // A range certificate's blocks re-derived number by number, and what they
 // add up to (SPEC.md, sections 3 "A range" and 6).
 
 // Sieve is a sieve certificate the kernel checked in full: the value a
-// range rests on. Only the kernel makes one.
+// range rests on. Only the kernel makes one (RangeSieve).
 type Sieve struct {
 	Root   Hash
 	Header *SieveHeader
-	joined []uint64 // the joined survivors' residues, increasing
+	chunks [][]uint64 // the joined survivors' residues, chunk by chunk
+	once   sync.Once
+	joined []uint64 // all of them, increasing: made on the first Joined
 }
 
 // Joined says whether the survivor class r mod 2^k is joined to a
 // smaller one (SPEC.md, section 8).
 func (s *Sieve) Joined(r uint64) bool {
+	s.once.Do(func() {
+		for _, c := range s.chunks {
+			s.joined = append(s.joined, c...)
+		}
+		slices.Sort(s.joined)
+	})
 	_, ok := slices.BinarySearch(s.joined, r)
 	return ok
 }

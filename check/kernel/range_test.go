@@ -11,7 +11,7 @@ import (
 const rangeVector = "range-3n+1-k12-to-2^20.dcert"
 
 func TestRangeVectors(t *testing.T) {
-	rep := check(vector(t, rangeVector), Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert")})
+	rep := checkBytes(vector(t, rangeVector), Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert")})
 	require.NoError(t, rep.Err())
 	// OEIS A060412: the stopping-time records below 2^20.
 	var recs []string
@@ -24,7 +24,7 @@ func TestRangeVectors(t *testing.T) {
 	require.Equal(t, "1 1", cycles[0].Min.String()+" "+cycles[0].Count.String())
 
 	// From memory: 3n-1 has cycles through 1, 5 and 17.
-	rep = check(vector(t, "range-3n-1-k12-to-10^5.dcert"), Options{Sieve: sieveOf(t, "sieve-3n-1-k12.dcert")})
+	rep = checkBytes(vector(t, "range-3n-1-k12-to-10^5.dcert"), Options{Sieve: sieveOf(t, "sieve-3n-1-k12.dcert")})
 	require.NoError(t, rep.Err())
 	require.Len(t, rep.File.Range.Totals.Cycles, 3)
 	for i, m := range []int64{1, 5, 17} {
@@ -36,19 +36,19 @@ func TestRangeNeedsItsSieve(t *testing.T) {
 	b := vector(t, rangeVector)
 	// Without its sieve, or with another one: the reader's mistake, not
 	// a fault of the certificate.
-	rep := check(b, Options{})
+	rep := checkBytes(b, Options{})
 	require.ErrorIs(t, rep.Err(), ErrUsage)
 	require.Equal(t, ReasonSieveMissing, rep.Failure.Reason)
 	require.Contains(t, rep.Failure.Hint, "-sieve FILE")
 
-	rep = check(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k10.dcert")})
+	rep = checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k10.dcert")})
 	require.ErrorIs(t, rep.Err(), ErrUsage)
 	require.Equal(t, ReasonSieveMismatch, rep.Failure.Reason)
 }
 
 func TestRangeAudit(t *testing.T) {
 	b := vector(t, rangeVector)
-	rep := check(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert"), Sample: 5, Seed: "reviewer"})
+	rep := checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert"), Sample: 5, Seed: "reviewer"})
 	require.NoError(t, rep.Err())
 	require.Equal(t, &Audit{Blocks: 64, Drawn: rep.Audit.Drawn, Seed: "reviewer", SeedFrom: "reader"}, rep.Audit)
 	require.Len(t, rep.Audit.Drawn, 5)
@@ -69,7 +69,7 @@ func TestEveryBitFlipOfARangeIsRejected(t *testing.T) {
 		}
 		bad := bytes.Clone(good)
 		bad[i/8] ^= 0x80 >> (i % 8)
-		rep := check(bad, o)
+		rep := checkBytes(bad, o)
 		err := rep.Err()
 		require.Error(t, err, "bit %d of byte %d flipped: accepted", i%8, i/8)
 		require.True(t, errors.Is(err, ErrInvalid) || errors.Is(err, ErrMalformed), "bit %d: %v", i, err)

@@ -25,6 +25,7 @@ type Params struct {
 	J, D int      // the step budget and the split depth
 	apow []uint64 // a^s mod 2^64
 	alen []int    // the bit length of a^s
+	keep bool     // keep the residues of joined survivors (Tally.Joined)
 }
 
 func NewParams(m Map, j int) *Params {
@@ -122,7 +123,8 @@ type Tally struct {
 	Survivors uint64
 	Closed    []uint64 // Closed[t], t = 1..J
 	Stubs     []Stub   // the top chunk: the classes open at depth D
-	Joined    []uint64 // a sieve with joins: the joined survivors' residues
+	Joined    []uint64 // a sieve with joins: the joined survivors' residues, if kept
+	joins     uint64   // the joins verified
 }
 
 // Subtree is the code of the trie below a class at depth t with s odd
