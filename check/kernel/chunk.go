@@ -8,9 +8,13 @@ import (
 	"strconv"
 )
 
-// The chunk records of a sieve: framing, the grammar of the codes, the
-// judgement of their claims, and the join sections (SPEC.md, section 2
-// "Chunks", section 3 step 7, section 8).
+// The chunk records of a sieve: framing, decoding and judging, and the
+// join sections (SPEC.md, section 2 "Chunks", section 3 step 7, section 8).
+
+const (
+	chunkHead        = 14      // the bytes of a chunk's head
+	maxJoinSurvivors = 1 << 22 // survivors of a chunk of a sieve with joins
+)
 
 // frame reads the head of chunk record i at offset base and sets up a walk
 // over its codes; rest is what follows them (a join section).
@@ -40,109 +44,60 @@ func (p *Params) frame(i int, rec []byte, base int64, joins bool) (w *walk, begi
 	return w, begin, start, rest, nil
 }
 
-// grammar decodes chunk record i without judging it: its codes must
-// describe a trie from its own depth "from" to "to" and be used exactly,
-// and a join section must decode.
-func (p *Params) grammar(i int, rec []byte, base int64, joins bool) *Failure {
-	w, begin, _, rest, fl := p.frame(i, rec, base, joins)
-	if fl != nil {
-		return fl
-	}
-	leaves := 0
-	var parse func(t int) bool
-	parse = func(t int) bool {
-		for ; t < w.end; t++ {
-			x, ok := w.bit()
-			if !ok {
-				return false
-			}
-			if x == 0 {
-				if !parse(t + 1) {
-					return false
-				}
-			} else if _, ok := w.bit(); !ok {
-				return false
-			}
-		}
-		leaves++
-		return true
-	}
-	switch {
-	case !parse(begin):
-		return malformed(base, "chunk %d: the trie codes end above depth %d", i, w.end)
-	case w.pos != w.nbit:
-		return malformed(base+chunkHead, "chunk %d: %d code bits are left after the last class of depth %d", i, w.nbit-w.pos, w.end)
-	case i > 0 && joins && leaves > maxJoinSurvivors:
-		return malformed(base, "chunk %d has more than %d survivors, the most a chunk of a sieve with joins may hold", i, maxJoinSurvivors)
-	case i > 0 && joins:
-		_, _, fl = readJoins(rest, leaves, i, base+int64(len(rec)-len(rest)))
-	}
-	return fl
-}
-
-// chunk judges record i: its depths, its start (want, the stub it must
-// start at; nil for the top chunk), every class by its code, and its joins.
-// The record is decoded before it is judged (SPEC.md, section 3): a false
-// claim is reported only if the codes and the join section follow the
-// grammar, else the record is malformed.
-func (p *Params) chunk(i int, rec []byte, base int64, want *Stub, maxStubs int, joins bool, memo Memo) (*Tally, *Failure) {
-	t, fl := p.judge(i, rec, base, want, maxStubs, joins, memo)
-	if fl != nil && fl.Class == ErrInvalid {
-		if g := p.grammar(i, rec, base, joins); g != nil {
-			return nil, g
-		}
-	}
-	return t, fl
-}
-
-func (p *Params) judge(i int, rec []byte, base int64, want *Stub, maxStubs int, joins bool, memo Memo) (*Tally, *Failure) {
+// chunk decodes record i and, if judge, judges it: its depths, its start
+// (want, the stub it must start at; nil for the top chunk), every class
+// by its code, and its joins. A record that breaks the grammar is
+// malformed, whatever it claims; else its first false claim is the
+// failure (SPEC.md, section 3, step 7).
+func (p *Params) chunk(i int, rec []byte, base int64, want *Stub, maxStubs int, joins, judge bool, memo Memo) (*Tally, *Failure) {
 	w, begin, start, rest, fl := p.frame(i, rec, base, joins)
 	if fl != nil {
 		return nil, fl
 	}
+	w.judge, w.maxStubs, w.tally.Closed = judge, maxStubs, make([]uint64, p.J+1)
 	from, to := p.D, p.J
 	if i == 0 {
 		from, to = 0, p.D
 	}
 	if begin != from || w.end != to {
-		return nil, invalid(ReasonChunkSpan, Where{Chunk: chunkAt(i), Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", begin, w.end)},
-			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", begin, w.end, p.J, p.D, from, to)
+		w.false_(invalid(ReasonChunkSpan, Where{Chunk: chunkAt(i), Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", begin, w.end)},
+			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", begin, w.end, p.J, p.D, from, to))
 	}
-	w.maxStubs, w.tally.Closed = maxStubs, make([]uint64, p.J+1)
 	at := Stub{}
-	if i > 0 {
-		// A sieve with joins names survivors by their place: walk each one.
-		w.memo, w.collect = memo, joins
-		if joins {
-			w.memo, w.found = nil, make([]uint64, 0, min(w.nbit+1, 1<<20)) // at most one leaf per code bit, plus one
-		}
+	if i > 0 && want != nil {
 		if start != want.Res {
-			return nil, invalid(ReasonChunkStart, w.where(start, p.D, "chunk covers this class", strconv.FormatUint(want.Res, 10), strconv.FormatUint(start, 10)),
-				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.Res, p.D, i, p.D)
+			w.false_(invalid(ReasonChunkStart, w.where(start, p.D, "chunk covers this class", strconv.FormatUint(want.Res, 10), strconv.FormatUint(start, 10)),
+				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.Res, p.D, i, p.D))
 		}
 		at = *want
 	}
-	if !w.visit(begin, at.S, at.V, at.Res) {
-		return nil, w.fail
+	if i > 0 && joins { // the joins name survivors by their place: walk each one
+		w.found = make([]uint64, 0, min(w.nbit+1, 1<<20)) // a trie has at most one leaf per code bit, plus one
+	} else if i > 0 {
+		w.memo = memo
 	}
-	if w.pos != w.nbit {
+	switch {
+	case !w.visit(begin, at.S, at.V, at.Res):
+		return nil, w.bad
+	case w.pos != w.nbit:
 		return nil, malformed(base+chunkHead, "chunk %d: %d code bits are left after the last class of depth %d", i, w.nbit-w.pos, w.end)
 	}
-	if w.collect {
+	if w.found != nil {
 		joined, deltas, fl := readJoins(rest, len(w.found), i, base+int64(len(rec)-len(rest)))
 		if fl != nil {
 			return nil, fl
 		}
 		for x, r := range w.found {
-			if joined[x] {
-				if fl := p.join(w, r, deltas[x]); fl != nil {
-					return nil, fl
-				}
+			if joined[x] && w.claim == nil && w.judge {
+				w.claim = p.join(w, r, deltas[x])
 				if w.tally.joins++; p.keep {
 					w.tally.Joined = append(w.tally.Joined, r)
 				}
 			}
 		}
+	}
+	if w.claim != nil || !judge {
+		return nil, w.claim
 	}
 	return &w.tally, nil
 }

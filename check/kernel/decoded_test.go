@@ -111,7 +111,7 @@ func Decode(r io.Reader) (*decoded, error) {
 			return nil, errors.New("record beyond the end")
 		}
 		rec, g := read(i), base+i
-		if fl := p.grammar(g, rec, f.Offsets[i], h.Joins); fl != nil {
+		if _, fl := p.chunk(g, rec, f.Offsets[i], nil, 0, h.Joins, false, nil); fl != nil {
 			return nil, fl
 		}
 		w, begin, start, rest, _ := p.frame(g, rec, f.Offsets[i], h.Joins)

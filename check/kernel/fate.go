@@ -266,3 +266,20 @@ func (h *RangeHeader) RuleFor(n *big.Int) int {
 	}
 	return -1
 }
+
+// FatesBelow derives what each number below lo reaches by the fate rule
+// when lo <= 2 (then there is at most the number 1), so that a range from
+// 1 or 2 can name every cycle reached below hi; nil otherwise, or if it
+// would take more than 2^24 steps.
+func FatesBelow(m Map, C uint32, W int, lo *big.Int) []Fate {
+	if lo == nil || lo.Cmp(big.NewInt(2)) > 0 {
+		return nil
+	}
+	p, meter, out := NewParams(m, 1), NewMeter(big.NewInt(1<<24)), []Fate{}
+	for n := int64(1); n < lo.Int64(); n++ {
+		if out = append(out, p.Fate(big.NewInt(n), C, W, meter)); meter.Exceeded() {
+			return nil
+		}
+	}
+	return out
+}

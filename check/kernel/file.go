@@ -202,6 +202,14 @@ func (f *File) verify() *Failure {
 	return nil
 }
 
+// base is the whole's index of the file's first record.
+func (f *File) base() int {
+	if f.Shard != nil {
+		return f.Shard.First
+	}
+	return 0
+}
+
 // BytesRead is the number of bytes read from the file so far.
 func (f *File) BytesRead() int64 { return f.read.Load() }
 

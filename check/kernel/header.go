@@ -9,24 +9,12 @@ import (
 // The header bodies (SPEC.md, sections 2, 6 and 7) and the block records
 // of a range, with the format's rules on their values.
 
+// Caps and bounds of the format (SPEC.md, sections 2 and 4).
 const (
-	magic     = "descent\x00"
-	version   = 2
-	kindSieve = 's'
-	kindJoins = 'j' // a sieve with joins
-	kindRange = 'r'
-	kindShard = 'h'
-
-	maxExc         = 1 << 16 // exceptions of a sieve
-	maxCap         = 1 << 24 // the step cap C
-	maxK           = 64
-	minCeiling     = 128
-	maxCeiling     = 8192
-	MaxList        = 1 << 16 // records, cycles or undecided numbers in one list
-	maxBlockExp    = 62
-	maxRules       = 16
-	maxRuleSteps   = 64
-	maxRuleModulus = 1 << 62
+	magic, version                               = "descent\x00", 2
+	kindSieve, kindJoins, kindRange, kindShard   = 's', 'j', 'r', 'h'
+	maxExc, maxCap, maxK, minCeiling, maxCeiling = 1 << 16, 1 << 24, 64, 128, 8192
+	MaxList, maxBlockExp, maxRules, maxRuleSteps = 1 << 16, 62, 16, 64 // MaxList: records, cycles or undecided numbers in a list
 )
 
 // Map is T(n) = n/2 for even n, (A*n + B)/2 for odd n.
@@ -42,20 +30,22 @@ func (m Map) String() string {
 	return fmt.Sprintf("%dn+%d", m.A, m.B)
 }
 
-// The fates of a number (SPEC.md, section 1, "Fates").
+// The fates of a number (SPEC.md, section 1, "Fates"), and the six counts
+// of a summary in the order of the format (section 6).
 const (
-	Descends  = 1
-	Cycle     = 2
-	Undecided = 3
+	Descends, Cycle, Undecided                         = 1, 2, 3
+	CSieve, CJoin, CSearch, CSmall, CCycle, CUndecided = 0, 1, 2, 3, 4, 5
 )
 
-// Fate is the fate of N: it descends after Steps steps, reaches the cycle
-// whose smallest member is CycleMin, or is undecided.
+var countNames = [6]string{"numbers justified by the sieve", "numbers justified by a join", "numbers found to drop by search",
+	"small numbers found to drop by direct iteration", "numbers that reach a cycle", "undecided numbers"}
+
+// Fate is the fate of N: Descends after Steps steps, Cycle with the
+// cycle's smallest member CycleMin, or Undecided.
 type Fate struct {
-	N        *big.Int
-	Kind     byte
-	Steps    uint32
-	CycleMin *big.Int
+	N, CycleMin *big.Int
+	Kind        byte
+	Steps       uint32
 }
 
 func (e Fate) same(x Fate) bool {
@@ -65,31 +55,16 @@ func (e Fate) same(x Fate) bool {
 // SieveHeader is the header body of a sieve (kinds s and j).
 type SieveHeader struct {
 	Map
-	K, J       int
-	Cap        uint32 // C
-	Ceiling    int    // W, in bits
-	Survivors  uint64
-	Joins      bool // kind j
-	Joined     uint64
-	ClosedAt   []uint64 // ClosedAt[t-1] for t = 1..J
-	Exceptions []Fate
+	K, J              int
+	Cap               uint32 // C
+	Ceiling           int    // W, in bits
+	Joins             bool   // kind j
+	Survivors, Joined uint64
+	ClosedAt          []uint64 // ClosedAt[t-1] for t = 1..J
+	Exceptions        []Fate
 }
 
-// The six counts of a summary, in the order of the format.
-const (
-	CSieve = iota
-	CJoin
-	CSearch
-	CSmall
-	CCycle
-	CUndecided
-)
-
-var countNames = [6]string{"numbers justified by the sieve", "numbers justified by a join", "numbers found to drop by search",
-	"small numbers found to drop by direct iteration", "numbers that reach a cycle", "undecided numbers"}
-
-// Summary is what a block, or the whole range, establishes (SPEC.md,
-// section 6, "Blocks").
+// Summary is what a block, or the whole range, states (section 6).
 type Summary struct {
 	Counts   [6]*big.Int // CSieve .. CUndecided
 	Rules    []*big.Int  // numbers resting on each predecessor rule
@@ -100,17 +75,17 @@ type Summary struct {
 	Cycles   []CycleCount
 }
 
-// Point is a number with its stopping time.
+// Point is a number with its stopping time; CycleCount a cycle by its
+// smallest member, with the numbers reaching it.
 type Point struct {
 	N     *big.Int
 	Sigma uint32
 }
 
-// CycleCount is a cycle by its smallest member, and the numbers reaching it.
 type CycleCount struct{ Min, Count *big.Int }
 
 // Rule is a predecessor rule: every n = M*q + C has the predecessor
-// m = Mp*q + Cp with T^Steps(m) = n (SPEC.md, section 9).
+// m = Mp*q + Cp with T^Steps(m) = n (section 9).
 type Rule struct {
 	M, C, Mp, Cp uint64
 	Steps        int
@@ -133,20 +108,18 @@ type RangeHeader struct {
 	first     *big.Int // the first block's index, Lo >> E
 }
 
-// Block is a block record.
+// Block is a block record; ShardHeader a shard's header (section 7).
 type Block struct {
 	Index     uint32
 	Summary   Summary
 	Undecided []*big.Int
 }
 
-// ShardHeader is a shard's header (SPEC.md, section 7).
 type ShardHeader struct {
-	Whole                   byte // the whole's kind
-	Index, Of, First, Count int
-	WholeRecords            int
-	sieve                   *SieveHeader
-	rng                     *RangeHeader
+	Whole                                 byte // the whole's kind
+	Index, Of, First, Count, WholeRecords int
+	sieve                                 *SieveHeader
+	rng                                   *RangeHeader
 }
 
 // fields reads a header body or a block record; base is its offset in the
@@ -181,27 +154,23 @@ func (p *fields) natural(what string) *big.Int {
 	if p.bad == nil && n == 0 {
 		p.bad = malformed(at, "%s has length 0", what)
 	}
-	b := p.next(n, what)
-	if p.bad == nil && b[0] == 0 {
+	if b := p.next(n, what); p.bad == nil && b[0] == 0 {
 		p.bad = malformed(at+1, "%s starts with a zero byte, which is not canonical", what)
+	} else if p.bad == nil {
+		return new(big.Int).SetBytes(b)
 	}
-	if p.bad != nil {
-		return new(big.Int)
-	}
-	return new(big.Int).SetBytes(b)
+	return new(big.Int)
 }
 
 // list reads a count and checks it against the cap before anything is
 // allocated for it.
 func (p *fields) list(what string) int {
-	n := p.u32(what)
-	if p.bad == nil && n > MaxList {
+	if n := p.u32(what); p.bad == nil && n > MaxList {
 		p.bad = malformed(p.base+int64(p.pos-4), "%d %s; the format allows %d", n, what, MaxList)
+	} else if p.bad == nil {
+		return int(n)
 	}
-	if p.bad != nil {
-		return 0
-	}
-	return int(n)
+	return 0
 }
 
 // rest fails unless the body ends here.
@@ -309,12 +278,7 @@ func versionFailure(v byte) *Failure {
 // are u128 in a header (wide) and u64 in a block.
 func (p *fields) summary(wide bool, rules int) Summary {
 	var s Summary
-	count := func(what string) *big.Int {
-		if wide {
-			return p.wide(16, what)
-		}
-		return p.wide(8, what)
-	}
+	count := func(what string) *big.Int { return p.wide(8+8*bit(wide), what) }
 	for i := range s.Counts {
 		s.Counts[i] = count(countNames[i])
 	}
@@ -367,7 +331,7 @@ func parseRangeHeader(body []byte, records int) (*RangeHeader, *Failure) {
 	h.Rules = []Rule{}
 	for range nr {
 		r := Rule{M: p.u64("rule modulus"), C: p.u64("rule class"), Mp: p.u64("predecessor modulus"), Cp: p.u64("predecessor class"), Steps: p.u8("rule steps")}
-		if p.bad == nil && (r.Steps < 1 || r.Steps > maxRuleSteps || r.M < 1 || r.M > maxRuleModulus || r.C > maxRuleModulus || r.Mp > maxRuleModulus || r.Cp > maxRuleModulus) {
+		if p.bad == nil && (r.Steps < 1 || r.Steps > maxRuleSteps || r.M < 1 || max(r.M, r.C, r.Mp, r.Cp) > 1<<62) {
 			return nil, malformed(p.base+int64(p.pos-33), "predecessor rule %v: the format needs 1 to %d steps and M, c, M', c' at most 2^62, M > 0", r, maxRuleSteps)
 		}
 		h.Rules = append(h.Rules, r)
@@ -498,3 +462,10 @@ func spanOf(i, n, r int) (from, upto int) {
 
 // splitDepth is where the trie is cut into chunks: min(floor(j/2), 23).
 func splitDepth(j int) int { return min(j/2, 23) }
+
+func bit(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}

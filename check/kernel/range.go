@@ -6,6 +6,7 @@ import (
 	"math/bits"
 	"slices"
 	"sort"
+	"strconv"
 	"sync"
 )
 
@@ -176,59 +177,48 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 	return t
 }
 
-// diff names the first field in which two summaries differ, or "".
-func diff(want, got *Summary) string {
-	for c := range want.Counts {
-		if want.Counts[c].Cmp(got.Counts[c]) != 0 {
-			return fmt.Sprintf("%s: expected %v, found %v", countNames[c], want.Counts[c], got.Counts[c])
-		}
+// field is one field of a summary or block as text, and how to name it
+// when it differs: "%s: expected %s, found %s".
+type field struct{ name, value string }
+
+// fields lists a summary's fields in the order a difference is named.
+func (s *Summary) fields() []field {
+	var out []field
+	for c, x := range s.Counts {
+		out = append(out, field{countNames[c], x.String()})
 	}
-	if len(want.Rules) != len(got.Rules) {
-		return fmt.Sprintf("rule counts: expected %d, found %d", len(want.Rules), len(got.Rules))
+	out = append(out, field{"rule counts", strconv.Itoa(len(s.Rules))})
+	for i, x := range s.Rules {
+		out = append(out, field{fmt.Sprintf("numbers justified by predecessor rule %d", i), x.String()})
 	}
-	for i := range want.Rules {
-		if want.Rules[i].Cmp(got.Rules[i]) != 0 {
-			return fmt.Sprintf("numbers justified by predecessor rule %d: expected %v, found %v", i, want.Rules[i], got.Rules[i])
-		}
+	out = append(out, field{"sum of stopping times", s.Sum.String()}, field{"largest stopping time", fmt.Sprintf("%d at %v", s.MaxSigma, s.MaxAt)},
+		field{"records", strconv.Itoa(len(s.Records))})
+	for j, p := range s.Records {
+		out = append(out, field{fmt.Sprintf("record %d", j), fmt.Sprintf("%v (%d steps)", p.N, p.Sigma)})
 	}
-	if want.Sum.Cmp(got.Sum) != 0 {
-		return fmt.Sprintf("sum of stopping times: expected %v, found %v", want.Sum, got.Sum)
+	out = append(out, field{"cycles", strconv.Itoa(len(s.Cycles))})
+	for j, c := range s.Cycles {
+		out = append(out, field{fmt.Sprintf("cycle %d", j), fmt.Sprintf("%v (%v numbers)", c.Min, c.Count)})
 	}
-	if want.MaxSigma != got.MaxSigma || (want.MaxAt == nil) != (got.MaxAt == nil) || want.MaxAt != nil && want.MaxAt.Cmp(got.MaxAt) != 0 {
-		return fmt.Sprintf("largest stopping time: expected %d at %v, found %d at %v", want.MaxSigma, want.MaxAt, got.MaxSigma, got.MaxAt)
+	return out
+}
+
+// fields lists a block's: its summary's, then its undecided numbers.
+func (b *Block) fields() []field {
+	out := append(b.Summary.fields(), field{"undecided numbers", strconv.Itoa(len(b.Undecided))})
+	for j, n := range b.Undecided {
+		out = append(out, field{fmt.Sprintf("undecided number %d", j), n.String()})
 	}
-	if len(want.Records) != len(got.Records) {
-		return fmt.Sprintf("records: expected %d, found %d", len(want.Records), len(got.Records))
-	}
-	for j, p := range want.Records {
-		if q := got.Records[j]; p.N.Cmp(q.N) != 0 || p.Sigma != q.Sigma {
-			return fmt.Sprintf("record %d: expected %v (%d steps), found %v (%d steps)", j, p.N, p.Sigma, q.N, q.Sigma)
-		}
-	}
-	if len(want.Cycles) != len(got.Cycles) {
-		return fmt.Sprintf("cycles: expected %d, found %d", len(want.Cycles), len(got.Cycles))
-	}
-	for j, c := range want.Cycles {
-		if d := got.Cycles[j]; c.Min.Cmp(d.Min) != 0 || c.Count.Cmp(d.Count) != 0 {
-			return fmt.Sprintf("cycle %d: expected %v (%v numbers), found %v (%v numbers)", j, c.Min, c.Count, d.Min, d.Count)
+	return out
+}
+
+// diff names the first field in which two lists differ, or "". A list's
+// length comes before its entries, so two lists differ first in it.
+func diff(want, got []field) string {
+	for i := range min(len(want), len(got)) {
+		if want[i] != got[i] {
+			return fmt.Sprintf("%s: expected %s, found %s", want[i].name, want[i].value, got[i].value)
 		}
 	}
 	return ""
-}
-
-// compare compares a re-derived block with the record.
-func compare(i int, want, got *Block) *Failure {
-	d := diff(&want.Summary, &got.Summary)
-	if d == "" && len(want.Undecided) != len(got.Undecided) {
-		d = fmt.Sprintf("undecided numbers: expected %d, found %d", len(want.Undecided), len(got.Undecided))
-	}
-	for j := 0; d == "" && j < len(want.Undecided); j++ {
-		if want.Undecided[j].Cmp(got.Undecided[j]) != 0 {
-			d = fmt.Sprintf("undecided number %d: expected %v, found %v", j, want.Undecided[j], got.Undecided[j])
-		}
-	}
-	if d == "" {
-		return nil
-	}
-	return invalid(ReasonBlock, Where{Chunk: chunkAt(i), Claim: "block summary"}, "block %d does not match its re-derivation: %s", i, d)
 }
