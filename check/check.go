@@ -20,6 +20,7 @@ package check
 
 import (
 	"io"
+	"math/big"
 
 	"descent/check/kernel"
 )
@@ -69,4 +70,21 @@ func (d *deriver) derive(r *kernel.Range, i int, m *kernel.Meter) *kernel.Block 
 	s := *d.s
 	s.m = m
 	return s.derive(i, defaultWorkers(d.workers))
+}
+
+// FatesBelow derives what each number below lo reaches by the fate rule
+// when lo <= 2 (then there is at most the number 1), so that a range from
+// 1 or 2 can name every cycle reached below hi; nil otherwise, or if it
+// would take more than 2^24 steps.
+func FatesBelow(m kernel.Map, C uint32, W int, lo *big.Int) []kernel.Fate {
+	if lo == nil || lo.Cmp(big.NewInt(2)) > 0 {
+		return nil
+	}
+	p, meter, out := kernel.NewParams(m, 1), kernel.NewMeter(big.NewInt(1<<24)), []kernel.Fate{}
+	for n := int64(1); n < lo.Int64(); n++ {
+		if out = append(out, p.Fate(big.NewInt(n), C, W, meter)); meter.Exceeded() {
+			return nil
+		}
+	}
+	return out
 }

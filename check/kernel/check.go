@@ -56,7 +56,6 @@ type Result struct {
 	Span      *SpanResult // a share, or the records of a part
 	Audit     *Audit
 	Undecided []*big.Int // a range's undecided numbers, from its records
-	Below     []Fate     // what the numbers below a range from 1 or 2 reach; nil: not derived
 	Failure   *Failure
 }
 
@@ -461,6 +460,5 @@ func (res *Result) rangeClaims(f *File, o Options, from, upto int) *Failure {
 			o.Progress(n+1, len(chosen))
 		}
 	}
-	res.Below = FatesBelow(h.Map, h.Cap, h.Ceiling, h.Lo)
 	return nil
 }

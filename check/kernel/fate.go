@@ -25,17 +25,23 @@ func (p *Params) pow(s int) *big.Int {
 	return new(big.Int).Exp(big.NewInt(int64(p.A)), big.NewInt(int64(s)), nil)
 }
 
-// exceptionBound is the largest floor(s*b*a^s / (2*(2^t - a^s))) over the
-// s <= j odd steps that close at a step t <= j, t the bit length of a^s;
-// 0 when b < 0 (SPEC.md, "Bound on exceptions").
-func (p *Params) exceptionBound() *big.Int {
+// bound is the exception bound of section 1 ("Bound on exceptions") for
+// b > 0: the largest floor(s*b*a^s / (2*(2^t - a^s))) over the s <= j odd
+// steps that close at t <= j, t the bit length of a^s; 0 for b < 0. With
+// small, for b < 0 it is the small bound N0 of a range (section 6, "The
+// small bound"): t is then the last depth at which s odd steps are open,
+// min(bitlen(a^s) - 1, j), and the denominator 2*(a^s - 2^t).
+func (p *Params) bound(small bool) *big.Int {
 	limit := new(big.Int)
-	for s := 1; s <= p.J && p.B > 0; s++ {
-		if t := p.alen[s]; t <= p.J {
-			as := p.pow(s)
-			num := new(big.Int).Mul(as, big.NewInt(int64(s)*int64(p.B)))
+	for s := 1; s <= p.J; s++ {
+		as, t := p.pow(s), p.alen[s]
+		if p.B < 0 {
+			t = min(t-1, p.J)
+		}
+		if p.B > 0 && t <= p.J || p.B < 0 && small {
+			num := new(big.Int).Mul(as, big.NewInt(int64(s)*int64(max(p.B, -p.B))))
 			den := new(big.Int).Sub(new(big.Int).Lsh(big.NewInt(1), uint(t)), as)
-			if q := num.Div(num, den.Lsh(den, 1)); q.Cmp(limit) > 0 {
+			if q := num.Div(num, den.Lsh(den.Abs(den), 1)); q.Cmp(limit) > 0 {
 				limit = q
 			}
 		}
@@ -43,23 +49,9 @@ func (p *Params) exceptionBound() *big.Int {
 	return limit
 }
 
-// SmallBound is N0 of a range on a sieve of this j = k (SPEC.md, section
-// 6, "The small bound"): above it the sieve rule and the jump are exact.
-func (p *Params) SmallBound() *big.Int {
-	if p.B > 0 {
-		return p.exceptionBound()
-	}
-	limit := new(big.Int)
-	for s := 1; s <= p.J; s++ {
-		as := p.pow(s)
-		num := new(big.Int).Mul(as, big.NewInt(int64(s)*int64(-p.B)))
-		den := new(big.Int).Sub(as, new(big.Int).Lsh(big.NewInt(1), uint(min(as.BitLen()-1, p.J))))
-		if q := num.Div(num, den.Lsh(den, 1)); q.Cmp(limit) > 0 {
-			limit = q
-		}
-	}
-	return limit
-}
+// SmallBound is N0 of a range on a sieve of this j = k (section 6): above
+// it the sieve rule and the jump of a search are exact.
+func (p *Params) SmallBound() *big.Int { return p.bound(true) }
 
 // isException follows n until its class closes (or j steps pass) and says
 // whether n is at or below its class's threshold: T^t(n) >= n.
@@ -78,29 +70,20 @@ func (p *Params) isException(n *big.Int) (bool, int) {
 
 // Meter counts the steps of T a derivation may still take; a nil Meter
 // allows any number. It is safe for concurrent use.
-type Meter struct {
-	left atomic.Int64
-	over atomic.Bool
-}
+type Meter struct{ left atomic.Int64 }
 
 func NewMeter(steps *big.Int) *Meter {
 	m := &Meter{}
-	m.left.Store(math.MaxInt64)
-	if steps.IsInt64() {
+	if m.left.Store(math.MaxInt64); steps.IsInt64() {
 		m.left.Store(steps.Int64())
 	}
 	return m
 }
 
 // Charge takes n steps and reports whether to go on.
-func (m *Meter) Charge(n int64) bool {
-	if m != nil && m.left.Add(-n) < 0 {
-		m.over.Store(true)
-	}
-	return !m.Exceeded()
-}
+func (m *Meter) Charge(n int64) bool { return m == nil || m.left.Add(-n) >= 0 }
 
-func (m *Meter) Exceeded() bool { return m != nil && m.over.Load() }
+func (m *Meter) Exceeded() bool { return m != nil && m.left.Load() < 0 }
 
 // Fate decides n by the fate rule with cap C and ceiling W (SPEC.md,
 // "Fates"), x_i = T^i(n): it descends at the first i <= C with x_i < n,
@@ -159,7 +142,7 @@ func (e Fate) String() string {
 // with it, entry by entry in increasing order (section 3, step 10). The
 // work bound, checked before, keeps the bound within int64.
 func (p *Params) exceptions(h *SieveHeader) *Failure {
-	limit, listed := p.exceptionBound(), h.Exceptions
+	limit, listed := p.bound(false), h.Exceptions
 	fail := func(n *big.Int, expected, found, format string, args ...any) *Failure {
 		return invalid(ReasonException, Where{N: n.String(), Claim: "exception", Expected: expected, Found: found}, format, args...)
 	}
@@ -200,7 +183,7 @@ func overBudget(what string, bound, budget *big.Int) *Failure {
 
 // sieveWork is the work bound of a sieve, E*j + 3*C*X (section 4).
 func (p *Params) sieveWork(h *SieveHeader, budget *big.Int) *Failure {
-	w := new(big.Int).Mul(p.exceptionBound(), big.NewInt(int64(p.J)))
+	w := new(big.Int).Mul(p.bound(false), big.NewInt(int64(p.J)))
 	w.Add(w, new(big.Int).SetUint64(3*uint64(h.Cap)*uint64(len(h.Exceptions))))
 	if w.Cmp(budget) > 0 {
 		return overBudget(fmt.Sprintf("the exceptions of %s with j = %d (%d listed, cap %d)", p.Map, p.J, len(h.Exceptions), h.Cap), w, budget)
@@ -265,21 +248,4 @@ func (h *RangeHeader) RuleFor(n *big.Int) int {
 		}
 	}
 	return -1
-}
-
-// FatesBelow derives what each number below lo reaches by the fate rule
-// when lo <= 2 (then there is at most the number 1), so that a range from
-// 1 or 2 can name every cycle reached below hi; nil otherwise, or if it
-// would take more than 2^24 steps.
-func FatesBelow(m Map, C uint32, W int, lo *big.Int) []Fate {
-	if lo == nil || lo.Cmp(big.NewInt(2)) > 0 {
-		return nil
-	}
-	p, meter, out := NewParams(m, 1), NewMeter(big.NewInt(1<<24)), []Fate{}
-	for n := int64(1); n < lo.Int64(); n++ {
-		if out = append(out, p.Fate(big.NewInt(n), C, W, meter)); meter.Exceeded() {
-			return nil
-		}
-	}
-	return out
 }

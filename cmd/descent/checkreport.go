@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 
+	"descent/check"
 	"descent/check/kernel"
 )
 
@@ -553,7 +554,8 @@ func reportOf(res *kernel.Result, file string) *Report {
 		return r.fail(res.Failure)
 	}
 	if r.Kind == "range" || r.Kind == "range shard" {
-		r.Below = belowReport(res.Below)
+		h := res.File.Range
+		r.Below = belowReport(check.FatesBelow(h.Map, h.Cap, h.Ceiling, h.Lo))
 	}
 	r.Valid = true
 	r.Partial = r.Span != nil || r.Audit != nil || r.Shard != nil

@@ -6,6 +6,7 @@ import (
 	"strings"
 
 	"descent/cert"
+	"descent/check"
 	"descent/check/kernel"
 )
 
@@ -43,7 +44,7 @@ func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *Rep
 		Counts: &RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
 			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []RuleReport{}},
 		Records: []RecordReport{}, Cycles: []CycleReport{}, Undecided: []Num{},
-		Below: belowReport(kernel.FatesBelow(kernel.Map{A: h.Map.A, B: h.Map.B}, h.Cap, h.Ceiling, h.Lo))}
+		Below: belowReport(check.FatesBelow(kernel.Map{A: h.Map.A, B: h.Map.B}, h.Cap, h.Ceiling, h.Lo))}
 	for i, x := range h.Rules {
 		rr := RuleReport{Class: fmt.Sprintf("%d*q+%d", x.M, x.C), Predecessor: fmt.Sprintf("%d*q+%d", x.Mp, x.Cp), Steps: x.Steps, Numbers: "0"}
 		if i < len(t.Rules) {
