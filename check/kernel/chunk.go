@@ -59,15 +59,15 @@ func (p *Params) chunk(i int, rec []byte, base int64, want *Stub, maxStubs int, 
 	if i == 0 {
 		from, to = 0, p.D
 	}
-	if begin != from || w.end != to {
-		w.false_(invalid(ReasonChunkSpan, Where{Chunk: chunkAt(i), Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", begin, w.end)},
-			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", begin, w.end, p.J, p.D, from, to))
+	if (begin != from || w.end != to) && judge {
+		w.claim = invalid(ReasonChunkSpan, Where{Chunk: chunkAt(i), Claim: "depths of the chunk", Expected: fmt.Sprintf("%d..%d", from, to), Found: fmt.Sprintf("%d..%d", begin, w.end)},
+			"the chunk spans depths %d..%d, but j = %d (split at D = %d) calls for %d..%d", begin, w.end, p.J, p.D, from, to)
 	}
 	at := Stub{}
 	if i > 0 && want != nil {
-		if start != want.Res {
-			w.false_(invalid(ReasonChunkStart, w.where(start, p.D, "chunk covers this class", strconv.FormatUint(want.Res, 10), strconv.FormatUint(start, 10)),
-				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.Res, p.D, i, p.D))
+		if start != want.Res && w.judging() {
+			w.claim = invalid(ReasonChunkStart, w.where(start, p.D, "chunk covers this class", strconv.FormatUint(want.Res, 10), strconv.FormatUint(start, 10)),
+				"chunk %d must cover class %d mod 2^%d, open class number %d at depth %d", i, want.Res, p.D, i, p.D)
 		}
 		at = *want
 	}
@@ -88,7 +88,7 @@ func (p *Params) chunk(i int, rec []byte, base int64, want *Stub, maxStubs int, 
 			return nil, fl
 		}
 		for x, r := range w.found {
-			if joined[x] && w.claim == nil && w.judge {
+			if joined[x] && w.judging() {
 				w.claim = p.join(w, r, deltas[x])
 				if w.tally.joins++; p.keep {
 					w.tally.Joined = append(w.tally.Joined, r)

@@ -186,11 +186,8 @@ func (w *walk) bit() (uint64, bool) {
 	return uint64(w.code[(w.pos-1)/8]>>(7-(w.pos-1)%8)) & 1, true
 }
 
-func (w *walk) false_(fl *Failure) {
-	if w.judge && w.claim == nil {
-		w.claim = fl
-	}
-}
+// judging says whether claims are still judged: not once one is false.
+func (w *walk) judging() bool { return w.judge && w.claim == nil }
 
 func (w *walk) where(res uint64, t int, claim, expected, found string) Where {
 	return Where{Chunk: chunkAt(w.chunk), Residue: strconv.FormatUint(res, 10), Step: t, Claim: claim, Expected: expected, Found: found}
@@ -201,7 +198,7 @@ func (w *walk) where(res uint64, t int, claim, expected, found string) Where {
 func (w *walk) visit(t, s int, v, res uint64) bool {
 	p := w.p
 	for ; t < w.end; t++ {
-		if w.memo != nil && w.claim == nil && t == w.memo.Depth() && w.matches(w.memo.Lookup(s, v), t, s, v) {
+		if w.memo != nil && w.judging() && t == w.memo.Depth() && w.matches(w.memo.Lookup(s, v), t, s, v) {
 			return true
 		}
 		x, ok := w.bit()
@@ -211,9 +208,9 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		}
 		even, shut := v&1, p.Closes(t+1, s) // the child whose step t+1 is even closes at t+1
 		if x == 0 {
-			if shut {
-				w.false_(invalid(ReasonMissedClosing, w.where(res|even<<t, t+1, fmt.Sprintf("open after step %d", t+1), "closed", "open"),
-					"the class closes at step %d (%s < 2^%d) but is claimed open", t+1, p.power(s), t+1))
+			if shut && w.judging() {
+				w.claim = invalid(ReasonMissedClosing, w.where(res|even<<t, t+1, fmt.Sprintf("open after step %d", t+1), "closed", "open"),
+					"the class closes at step %d (%s < 2^%d) but is claimed open", t+1, p.power(s), t+1)
 			}
 			if v0, s0 := p.Step(v, s); !w.visit(t+1, s0, v0, res) {
 				return false
@@ -227,8 +224,8 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 			w.bad = malformed(w.at, "chunk %d: the trie codes end inside the code of class %d mod 2^%d", w.chunk, res, t)
 			return false
 		}
-		if y != even || !shut {
-			w.false_(w.falseClosing(res|y<<t, t+1, s, y != even))
+		if (y != even || !shut) && w.judging() {
+			w.claim = w.falseClosing(res|y<<t, t+1, s, y != even)
 		}
 		w.tally.Closed[t+1]++
 		v, s = p.Step(v+(1-y)*p.apow[s], s)
@@ -246,8 +243,10 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 	case len(w.tally.Stubs) == w.maxStubs:
 		// Bounded by the record count the file declares, never by what the
 		// codes claim: a short top chunk may describe millions of classes.
-		w.false_(invalid(ReasonCount, w.where(res, t, "chunks", strconv.Itoa(w.maxStubs+1), "more"),
-			"the top of the trie has more than the %d classes open at depth %d that the header's %d chunks allow", w.maxStubs, t, w.maxStubs+1))
+		if w.judging() {
+			w.claim = invalid(ReasonCount, w.where(res, t, "chunks", strconv.Itoa(w.maxStubs+1), "more"),
+				"the top of the trie has more than the %d classes open at depth %d that the header's %d chunks allow", w.maxStubs, t, w.maxStubs+1)
+		}
 	default:
 		w.tally.Stubs = append(w.tally.Stubs, Stub{res, s, v})
 	}
