@@ -19,6 +19,7 @@ import (
 	"golang.org/x/crypto/blake2b"
 
 	"descent/cert"
+	"descent/internal/certtest"
 )
 
 // mth is the Merkle tree hash of RFC 6962, section 2.1, written from the
@@ -335,7 +336,7 @@ func encodeWithCert(b []byte) ([]byte, error) {
 			recs = append(recs, out)
 		}
 	}
-	var f memFile
+	var f certtest.MemFile
 	w, err := cert.NewWriter(&f, header)
 	if err != nil {
 		return nil, err
@@ -350,16 +351,7 @@ func encodeWithCert(b []byte) ([]byte, error) {
 	if _, _, err := w.Close(); err != nil {
 		return nil, err
 	}
-	return f.b, nil
-}
-
-type memFile struct{ b []byte }
-
-func (m *memFile) WriteAt(p []byte, off int64) (int, error) {
-	if end := int(off) + len(p); end > len(m.b) {
-		m.b = append(m.b, make([]byte, end-len(m.b))...)
-	}
-	return copy(m.b[off:], p), nil
+	return f.B, nil
 }
 
 // FuzzRoundTrip: what package cert accepts, it writes back byte for byte,

@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
+	"descent/internal/certtest"
 	"descent/check/kernel"
 )
 
@@ -58,19 +59,17 @@ func (c *joinCut) seal(t *testing.T) []byte {
 	t.Helper()
 	hb, err := c.h.Marshal()
 	require.NoError(t, err)
-	var f memFile
-	w, err := cert.NewWriter(&f, hb)
-	require.NoError(t, err)
+	var recs [][]byte
 	for i, ch := range c.chunks {
 		rec := ch.Marshal()
 		if i > 0 {
 			rec = cert.AppendJoins(rec, c.joins[i])
 		}
-		require.NoError(t, w.WriteRecord(rec, cert.LeafHash(rec)))
+		recs = append(recs, rec)
 	}
-	_, _, err = w.Close()
+	b, err := certtest.Seal(hb, recs)
 	require.NoError(t, err)
-	return f.b
+	return b
 }
 
 // claim sets the join of survivor number x of chunk i to delta (0: none),

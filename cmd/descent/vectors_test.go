@@ -19,6 +19,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
+	"descent/internal/certtest"
 	"descent/check"
 	"descent/check/kernel"
 )
@@ -382,35 +383,19 @@ func layoutBoundaries(b []byte) []int {
 // reseal rebuilds a certificate from its header bytes and records, with
 // every hash and offset recomputed.
 func reseal(header []byte, recs [][]byte) []byte {
-	binary.BigEndian.PutUint32(header[10:], uint32(len(recs)))
-	var f memFile
-	w, err := cert.NewWriter(&f, header)
+	b, err := certtest.Seal(header, recs)
 	if err != nil {
 		panic(err)
 	}
-	for _, r := range recs {
-		if err := w.WriteRecord(r, cert.LeafHash(r)); err != nil {
-			panic(err)
-		}
-	}
-	if _, _, err := w.Close(); err != nil {
-		panic(err)
-	}
-	return f.b
+	return b
 }
 
 func records(b []byte) (header []byte, recs [][]byte) {
-	rd, err := cert.NewReader(bytes.NewReader(b))
+	header, recs, err := certtest.Records(b)
 	if err != nil {
 		panic(err)
 	}
-	for {
-		r, err := rd.Next()
-		if err != nil {
-			return append([]byte(nil), rd.Header...), recs
-		}
-		recs = append(recs, r)
-	}
+	return header, recs
 }
 
 func generate(t *testing.T) []vector {
