@@ -269,3 +269,38 @@ func BenchmarkRangeRules(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkCheckKernel checks a k = 32 sieve and a range of 2^26 numbers
+// from 2^60 on a k = 24 sieve (one block of 2^28), by the default checker
+// and by its kernel alone (check -reference); the kernel's slow-down is
+// the ratio of the medians.
+//
+//	go test ./cmd/descent -run '^$' -bench CheckKernel -benchtime 1x -count 5
+func BenchmarkCheckKernel(b *testing.B) {
+	dir := b.TempDir()
+	s32, s24, r26 := filepath.Join(dir, "s32.dcert"), filepath.Join(dir, "s24.dcert"), filepath.Join(dir, "r26.dcert")
+	emitFile(b, 32, s32)
+	res := emitFile(b, 24, s24)
+	lo := new(big.Int).Lsh(big.NewInt(1), 60)
+	f, err := os.Create(r26)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := emit.RangeParams{Sieve: res.Header, SieveRoot: res.Root, Lo: lo, Hi: new(big.Int).Add(lo, big.NewInt(1<<26)), E: 28}
+	if _, err := emit.Range(context.Background(), f, p, emit.RangeOptions{}); err != nil {
+		b.Fatal(err)
+	}
+	f.Close()
+	for _, ref := range []bool{false, true} {
+		name := map[bool]string{false: "default", true: "reference"}[ref]
+		for _, c := range []struct{ what, file, sieve string }{{"sieve-k=32", s32, ""}, {"range-2^26", r26, s24}} {
+			b.Run(c.what+"/"+name, func(b *testing.B) {
+				for range b.N {
+					if rep := newChecker(check.Options{}, c.sieve, ref).file(c.file); !rep.Valid {
+						b.Fatal(rep.Err())
+					}
+				}
+			})
+		}
+	}
+}
