@@ -16,8 +16,8 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/internal/certtest"
 	"descent/check/kernel"
+	"descent/internal/certtest"
 )
 
 // Forgeries: certificates whose hashes and root are recomputed after a

@@ -10,8 +10,8 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/internal/certtest"
 	"descent/check/kernel"
+	"descent/internal/certtest"
 )
 
 // joinCut is a sieve certificate with joins taken apart: for each chunk

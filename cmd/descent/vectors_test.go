@@ -19,9 +19,9 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/internal/certtest"
 	"descent/check"
 	"descent/check/kernel"
+	"descent/internal/certtest"
 )
 
 // Hostile test vectors (testdata/vectors): each file is one certificate
