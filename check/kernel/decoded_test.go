@@ -6,8 +6,6 @@ import (
 	"fmt"
 	"io"
 	"math/big"
-	"os"
-	"path/filepath"
 	"reflect"
 	"testing"
 
@@ -294,17 +292,7 @@ func decodeWithCert(b []byte) (*decoded, error) {
 //
 //	go test ./check/kernel -run '^$' -fuzz '^FuzzDecodersAgree$' -parallel 1 -fuzztime 10m -fuzzminimizetime 5s
 func FuzzDecodersAgree(f *testing.F) {
-	names, err := filepath.Glob(filepath.Join("..", "..", "testdata", "*.dcert"))
-	if err != nil || len(names) == 0 {
-		f.Fatal("no seed certificates in testdata")
-	}
-	for _, n := range names {
-		b, err := os.ReadFile(n)
-		if err != nil {
-			f.Fatal(err)
-		}
-		f.Add(b)
-	}
+	addSeeds(f)
 	f.Fuzz(func(t *testing.T, b []byte) {
 		mine, err1 := decodeWithCert(b)
 		theirs, err2 := Decode(bytes.NewReader(b))

@@ -18,17 +18,7 @@ import (
 const fuzzBudget = 1 << 22
 
 func FuzzCheck(f *testing.F) {
-	names, err := filepath.Glob(filepath.Join("..", "..", "testdata", "*.dcert"))
-	if err != nil || len(names) == 0 {
-		f.Fatal("no seed certificates in testdata")
-	}
-	for _, n := range names {
-		b, err := os.ReadFile(n)
-		if err != nil {
-			f.Fatal(err)
-		}
-		f.Add(b)
-	}
+	addSeeds(f)
 	sieve := sieveOf(f, "sieve-3n+1-k12.dcert")
 	f.Fuzz(func(t *testing.T, b []byte) {
 		rep := checkBytes(b, Options{Sieve: sieve, Budget: fuzzBudget})
@@ -44,4 +34,19 @@ func FuzzCheck(f *testing.F) {
 			t.Fatalf("valid, but the decoder rejects it: %v", err)
 		}
 	})
+}
+
+// addSeeds adds the certificates in testdata to a fuzz target's corpus.
+func addSeeds(f *testing.F) {
+	names, err := filepath.Glob(filepath.Join("..", "..", "testdata", "*.dcert"))
+	if err != nil || len(names) == 0 {
+		f.Fatal("no seed certificates in testdata")
+	}
+	for _, n := range names {
+		b, err := os.ReadFile(n)
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(b)
+	}
 }
