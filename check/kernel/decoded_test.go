@@ -217,6 +217,25 @@ func decodeWithCert(b []byte) (*decoded, error) {
 			if blk.Index != uint32(base+i) {
 				return nil, fmt.Errorf("record %d says it is block %d", base+i, blk.Index)
 			}
+			// Its counts add up to the numbers of the block (SPEC.md,
+			// section 3, a range, step 7), which cert's block decoder, not
+			// knowing the header, leaves to its caller.
+			first, _ := cert.BlockSpan(h.Lo, h.Hi, h.E)
+			lo := new(big.Int).Lsh(first.Add(first, big.NewInt(int64(base+i))), uint(h.E))
+			hi := new(big.Int).Add(lo, new(big.Int).Lsh(big.NewInt(1), uint(h.E)))
+			if lo.Cmp(h.Lo) < 0 {
+				lo = h.Lo
+			}
+			if hi.Cmp(h.Hi) > 0 {
+				hi = h.Hi
+			}
+			sum := new(big.Int)
+			for _, c := range append([]*big.Int{blk.Sieve, blk.Join, blk.Search, blk.Small, blk.Cycle, blk.Undecided}, blk.Rules...) {
+				sum.Add(sum, c)
+			}
+			if sum.Cmp(new(big.Int).Sub(hi, lo)) != 0 {
+				return nil, fmt.Errorf("block %d counts %v numbers; it has %v", base+i, sum, new(big.Int).Sub(hi, lo))
+			}
 			d.Blocks = append(d.Blocks, fmt.Sprint(blk.Index, summary(blk.Summary), blk.UndecidedNs))
 		}
 	}
