@@ -1,10 +1,10 @@
 package archive_test
 
 import (
+	"bytes"
 	"database/sql"
 	"errors"
 	"fmt"
-	"io"
 	"math/big"
 	mrand "math/rand"
 	"os"
@@ -14,6 +14,7 @@ import (
 
 	"descent/archive"
 	"descent/check"
+	"descent/check/kernel"
 
 	"github.com/stretchr/testify/require"
 )
@@ -27,34 +28,44 @@ const (
 	rangeM1 = "../testdata/range-3n-1-k12-to-10^5.dcert" // rests on sieveM1
 )
 
-// realCheck is a CheckFunc on package check, the real checker: a range is
-// first read without its sieve, which gives the sieve's root and a
-// failure, then checked with the sieve the archive finds.
+// realCheck is a CheckFunc on package check, the real checker, with the
+// sieve of a range found by the archive.
 func realCheck(s archive.Subject) (archive.Verdict, error) {
+	var sieveErr error
 	o := check.Options{}
-	rep := check.Check(io.NewSectionReader(s.R, 0, s.Size), o)
-	if rep.Kind == "range" {
-		path, err := s.Sieve(rep.SieveRoot)
-		if err != nil {
-			return archive.Verdict{}, err
+	o.Sample = s.Sample
+	o.Sieve = func(named kernel.Hash) (*kernel.Sieve, *kernel.Failure) {
+		path, err := s.Sieve(named.String())
+		var b []byte
+		if err == nil {
+			b, err = os.ReadFile(path)
 		}
-		o.Sieve, o.Sample = path, s.Sample
-		rep = check.Check(io.NewSectionReader(s.R, 0, s.Size), o)
+		if err != nil {
+			sieveErr = err
+			return nil, &kernel.Failure{Class: kernel.ErrUsage, Reason: kernel.ReasonSieveMissing, Msg: err.Error()}
+		}
+		return check.RangeSieve(bytes.NewReader(b), int64(len(b)), path, named, check.Options{})
 	}
-	if err := rep.Err(); err != nil {
-		if errors.Is(err, check.ErrInvalid) {
+	res := check.Check(s.R, s.Size, o)
+	if sieveErr != nil {
+		return archive.Verdict{}, sieveErr
+	}
+	if err := res.Err(); err != nil {
+		if errors.Is(err, kernel.ErrInvalid) {
 			return archive.Verdict{}, fmt.Errorf("%w: %v", archive.ErrInvalid, err)
 		}
 		return archive.Verdict{}, fmt.Errorf("%w: %v", archive.ErrMalformed, err)
 	}
-	v := archive.Verdict{Root: rep.Root, Kind: rep.Kind, Map: rep.Map, K: rep.K, Claim: "a " + rep.Kind + " claim"}
-	if rep.Kind == "sieve" {
-		v.J = rep.J
+	v := archive.Verdict{Root: res.Root.String(), Kind: "sieve"}
+	if h := res.File.Sieve; h != nil {
+		v.Map, v.K, v.J = h.Map.String(), h.K, h.J
 	} else {
-		v.Lo, v.Hi, v.SieveRoot = string(rep.From), string(rep.To), rep.SieveRoot
+		h := res.File.Range
+		v.Kind, v.Map, v.K, v.Lo, v.Hi, v.SieveRoot = "range", h.Map.String(), h.K, h.Lo.String(), h.Hi.String(), h.SieveRoot.String()
 	}
-	if a := rep.Audit; a != nil {
-		v.Audit = fmt.Sprintf("audit of %d of %d blocks", a.Audited, a.Blocks)
+	v.Claim = "a " + v.Kind + " claim"
+	if a := res.Audit; a != nil {
+		v.Audit = fmt.Sprintf("audit of %d of %d blocks", len(a.Drawn), a.Blocks)
 	}
 	return v, nil
 }
@@ -78,9 +89,19 @@ func roots(es []archive.Entry) []string {
 
 // rootOf is the root check finds for a committed certificate.
 func rootOf(t *testing.T, path string) string {
-	rep := check.File(path, check.Options{Sieve: map[string]string{range20: sieve12, rangeM1: sieveM1}[path]})
-	require.True(t, rep.Valid, "%s: %v", path, rep.Err())
-	return rep.Root
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	o := check.Options{}
+	if sieve := map[string]string{range20: sieve12, rangeM1: sieveM1}[path]; sieve != "" {
+		o.Sieve = func(named kernel.Hash) (*kernel.Sieve, *kernel.Failure) {
+			sb, err := os.ReadFile(sieve)
+			require.NoError(t, err)
+			return check.RangeSieve(bytes.NewReader(sb), int64(len(sb)), sieve, named, check.Options{})
+		}
+	}
+	res := check.Check(bytes.NewReader(b), int64(len(b)), o)
+	require.NoError(t, res.Err(), path)
+	return res.Root.String()
 }
 
 func TestArchiveAddFindVerify(t *testing.T) {

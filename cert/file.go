@@ -171,14 +171,14 @@ func NewWriter(w io.WriterAt, header []byte) (*Writer, error) {
 // on the header are computed at Close.
 func (w *Writer) SetHeader(header []byte) error {
 	if len(header) != len(w.header) {
-		return fmt.Errorf("cert: a header of %d bytes cannot replace one of %d", len(header), len(w.header))
+		return fmt.Errorf("a header of %d bytes cannot replace one of %d", len(header), len(w.header))
 	}
 	p, err := parsePreamble(header)
 	if err != nil {
 		return err
 	}
 	if p.records != w.lay.Records {
-		return fmt.Errorf("cert: the new header declares %d records, the old %d", p.records, w.lay.Records)
+		return fmt.Errorf("the new header declares %d records, the old %d", p.records, w.lay.Records)
 	}
 	w.header = header
 	_, err = w.w.WriteAt(header, 0)
@@ -189,7 +189,7 @@ func (w *Writer) SetHeader(header []byte) error {
 // with LeafHash (so that workers can hash in parallel).
 func (w *Writer) WriteRecord(rec []byte, leaf Hash) error {
 	if w.next >= w.lay.Records {
-		return fmt.Errorf("cert: record %d beyond the %d the header declares", w.next, w.lay.Records)
+		return fmt.Errorf("record %d beyond the %d the header declares", w.next, w.lay.Records)
 	}
 	if _, err := w.w.WriteAt(rec, w.pos); err != nil {
 		return err
@@ -212,7 +212,7 @@ func (w *Writer) putOffset(i int, off int64) error {
 // Close writes the final offset and returns the root and the file size.
 func (w *Writer) Close() (Hash, int64, error) {
 	if w.next != w.lay.Records {
-		return Hash{}, 0, fmt.Errorf("cert: %d records written, the header declares %d", w.next, w.lay.Records)
+		return Hash{}, 0, fmt.Errorf("%d records written, the header declares %d", w.next, w.lay.Records)
 	}
 	if err := w.tb.spine(LeafHash(w.header)); err != nil {
 		return Hash{}, 0, err

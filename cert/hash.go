@@ -18,10 +18,10 @@ func (h Hash) String() string { return hex.EncodeToString(h[:]) }
 func ParseHash(s string) (Hash, error) {
 	var h Hash
 	if len(s) != 2*len(h) {
-		return h, fmt.Errorf("cert: hash %q: want %d hex digits, have %d", s, 2*len(h), len(s))
+		return h, fmt.Errorf("hash %q: want %d hex digits, have %d", s, 2*len(h), len(s))
 	}
 	if _, err := hex.Decode(h[:], []byte(s)); err != nil {
-		return h, fmt.Errorf("cert: hash %q: %v", s, err)
+		return h, fmt.Errorf("hash %q: %v", s, err)
 	}
 	return h, nil
 }
@@ -118,16 +118,16 @@ func AuditPathLen(i, n int) int {
 }
 
 // ErrAuditPath reports an audit path that does not lead to the root.
-var ErrAuditPath = errors.New("cert: audit path does not lead to the root")
+var ErrAuditPath = errors.New("audit path does not lead to the root")
 
 // VerifyAuditPath checks that leaf is leaf i of a tree of n leaves whose
 // root is root.
 func VerifyAuditPath(leaf Hash, i, n int, path []Hash, root Hash) error {
 	if i < 0 || i >= n {
-		return fmt.Errorf("cert: leaf %d outside a tree of %d leaves", i, n)
+		return fmt.Errorf("leaf %d outside a tree of %d leaves", i, n)
 	}
 	if want := AuditPathLen(i, n); len(path) != want {
-		return fmt.Errorf("cert: audit path of leaf %d of %d: want %d hashes, have %d", i, n, want, len(path))
+		return fmt.Errorf("audit path of leaf %d of %d: want %d hashes, have %d", i, n, want, len(path))
 	}
 	h, sizes := leaf, LevelSizes(n)
 	for l := 0; l < len(sizes)-1; l++ {

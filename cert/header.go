@@ -170,7 +170,7 @@ func (h *SieveHeader) Marshal() ([]byte, error) {
 		}
 	}
 	if len(body) > MaxHeaderBody {
-		return nil, fmt.Errorf("cert: header body of %d bytes exceeds %d", len(body), MaxHeaderBody)
+		return nil, fmt.Errorf("header body of %d bytes exceeds %d", len(body), MaxHeaderBody)
 	}
 	kind := byte(KindSieve)
 	if h.Joins {

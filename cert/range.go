@@ -182,29 +182,29 @@ func (s *Summary) counts() []*big.Int {
 
 func (s *Summary) appendCounts(b []byte, wide bool) ([]byte, error) {
 	if len(s.Rules) > MaxRules {
-		return nil, fmt.Errorf("cert: %d rule counts exceed the cap of %d", len(s.Rules), MaxRules)
+		return nil, fmt.Errorf("%d rule counts exceed the cap of %d", len(s.Rules), MaxRules)
 	}
 	for _, c := range s.counts() {
 		if wide {
 			if !fits(c, 128) {
-				return nil, fmt.Errorf("cert: count %v does not fit 128 bits", c)
+				return nil, fmt.Errorf("count %v does not fit 128 bits", c)
 			}
 			b = appendU128(b, c)
 		} else {
 			if !fits(c, 64) {
-				return nil, fmt.Errorf("cert: block count %v does not fit 64 bits", c)
+				return nil, fmt.Errorf("block count %v does not fit 64 bits", c)
 			}
 			b = binary.BigEndian.AppendUint64(b, c.Uint64())
 		}
 	}
 	if !fits(s.SigmaSum, 128) {
-		return nil, fmt.Errorf("cert: stopping-time sum %v does not fit 128 bits", s.SigmaSum)
+		return nil, fmt.Errorf("stopping-time sum %v does not fit 128 bits", s.SigmaSum)
 	}
 	b = appendU128(b, s.SigmaSum)
 	b = binary.BigEndian.AppendUint32(b, s.MaxSigma)
 	b = appendOptNat(b, s.MaxAt)
 	if len(s.Records) > MaxRecords1 || len(s.Cycles) > MaxCycles {
-		return nil, fmt.Errorf("cert: %d records and %d cycles exceed the caps", len(s.Records), len(s.Cycles))
+		return nil, fmt.Errorf("%d records and %d cycles exceed the caps", len(s.Records), len(s.Cycles))
 	}
 	b = binary.BigEndian.AppendUint32(b, uint32(len(s.Records)))
 	for _, p := range s.Records {

@@ -2,22 +2,18 @@ package check
 
 import (
 	"bytes"
-	"encoding/binary"
-	"encoding/hex"
-	"errors"
 	"go/build"
 	"go/parser"
 	"go/token"
-	"math/big"
 	"os"
 	"os/exec"
 	"path/filepath"
-	"runtime"
 	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
-	"golang.org/x/crypto/blake2b"
+
+	"descent/check/kernel"
 )
 
 func vector(t testing.TB, name string) []byte {
@@ -27,237 +23,140 @@ func vector(t testing.TB, name string) []byte {
 	return b
 }
 
-var valid = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert"}
+// sieveOf gives a range check the committed sieve certificate name, checked
+// by the kernel alone (reference) or with the fast paths.
+func sieveOf(t testing.TB, name string, reference bool) func(kernel.Hash) (*kernel.Sieve, *kernel.Failure) {
+	b := vector(t, name)
+	return func(named kernel.Hash) (*kernel.Sieve, *kernel.Failure) {
+		if reference {
+			return kernel.RangeSieve(bytes.NewReader(b), int64(len(b)), name, named, kernel.Options{})
+		}
+		return RangeSieve(bytes.NewReader(b), int64(len(b)), name, named, Options{})
+	}
+}
+
+// both checks b with the default checker and with the kernel alone, and
+// requires the same verdict and reason.
+func both(t testing.TB, b []byte, o Options, sieve string) *kernel.Result {
+	t.Helper()
+	ko := o.Options
+	if sieve != "" {
+		o.Sieve, ko.Sieve = sieveOf(t, sieve, false), sieveOf(t, sieve, true)
+	}
+	fast := Check(bytes.NewReader(b), int64(len(b)), o)
+	ref := kernel.Check(bytes.NewReader(b), int64(len(b)), ko)
+	require.Equal(t, reason(ref), reason(fast), "the kernel alone says %v; the default checker %v", ref.Err(), fast.Err())
+	return fast
+}
+
+// reason is "valid" or the reason of the failure.
+func reason(r *kernel.Result) string {
+	if r.Failure == nil {
+		return "valid"
+	}
+	return r.Failure.Reason
+}
 
 func TestImportsOnlyStdlibAndBlake2b(t *testing.T) {
 	// The checker must stay independent of the code that writes
-	// certificates: its non-test files import the standard library and
-	// golang.org/x/crypto/blake2b, nothing else, directly or through
-	// another package.
-	ok := func(path string) bool {
-		if path == "golang.org/x/crypto/blake2b" {
-			return true
-		}
+	// certificates: the non-test files of check and check/kernel import the
+	// standard library and golang.org/x/crypto/blake2b, and check also the
+	// kernel, nothing else, directly or through another package.
+	std := func(path string) bool {
 		if path == "descent" || strings.HasPrefix(path, "descent/") {
 			return false // the module's own packages have no dot either
 		}
 		pkg, err := build.Import(path, "", build.FindOnly)
 		return err == nil && pkg.Goroot
 	}
-	files, err := filepath.Glob("*.go")
-	require.NoError(t, err)
-	fset := token.NewFileSet()
-	for _, name := range files {
-		if strings.HasSuffix(name, "_test.go") {
-			continue
-		}
-		f, err := parser.ParseFile(fset, name, nil, parser.ImportsOnly)
+	for dir, allowed := range map[string][]string{".": {"golang.org/x/crypto/blake2b", "descent/check/kernel"}, "kernel": {"golang.org/x/crypto/blake2b"}} {
+		ok := func(path string) bool { return std(path) || strings.Contains(strings.Join(allowed, " "), path) }
+		files, err := filepath.Glob(filepath.Join(dir, "*.go"))
 		require.NoError(t, err)
-		for _, imp := range f.Imports {
-			path := strings.Trim(imp.Path.Value, `"`)
-			require.True(t, ok(path), "%s imports %s", name, path)
+		fset := token.NewFileSet()
+		for _, name := range files {
+			if strings.HasSuffix(name, "_test.go") {
+				continue
+			}
+			f, err := parser.ParseFile(fset, name, nil, parser.ImportsOnly)
+			require.NoError(t, err)
+			for _, imp := range f.Imports {
+				path := strings.Trim(imp.Path.Value, `"`)
+				require.True(t, ok(path), "%s imports %s", name, path)
+			}
 		}
-	}
-	// Indirectly: every dependency is standard, blake2b, or one of
-	// blake2b's own (golang.org/x/sys/cpu, x/crypto/internal).
-	out, err := exec.Command("go", "list", "-deps", ".").Output()
-	require.NoError(t, err)
-	for _, dep := range strings.Fields(string(out)) {
-		if dep == "descent/check" || strings.HasPrefix(dep, "golang.org/x/crypto/") || strings.HasPrefix(dep, "golang.org/x/sys/") {
-			continue
+		// Indirectly: every dependency is standard, allowed, or one of
+		// blake2b's own (golang.org/x/sys/cpu, x/crypto/internal).
+		out, err := exec.Command("go", "list", "-deps", "./"+dir).Output()
+		require.NoError(t, err)
+		for _, dep := range strings.Fields(string(out)) {
+			if dep == "descent/check" || dep == "descent/check/kernel" || ok(dep) || strings.HasPrefix(dep, "golang.org/x/crypto/") || strings.HasPrefix(dep, "golang.org/x/sys/") ||
+				strings.HasPrefix(dep, "internal/") || strings.HasPrefix(dep, "vendor/") {
+				continue
+			}
+			t.Fatalf("%s depends on %s", dir, dep)
 		}
-		require.True(t, ok(dep) || strings.HasPrefix(dep, "internal/") || strings.HasPrefix(dep, "vendor/"), "the checker depends on %s", dep)
 	}
 	// And the rule itself: the emitter is not allowed.
-	require.False(t, ok("descent/emit"))
-	require.False(t, ok("descent/cert"))
-	require.True(t, ok("math/big"))
+	require.False(t, std("descent/emit"))
+	require.False(t, std("descent/cert"))
+	require.True(t, std("math/big"))
 }
 
-func TestValidVectors(t *testing.T) {
+var valid = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert", "sieve-3n+1-k8-joins.dcert"}
+
+func TestValidVectorsAgreeWithTheKernel(t *testing.T) {
 	for _, name := range valid {
-		for _, plain := range []bool{false, true} {
-			rep := Check(bytes.NewReader(vector(t, name)), Options{Plain: plain})
-			require.NoError(t, rep.Err(), "%s (plain %v)", name, plain)
-			require.True(t, rep.Valid)
+		for _, w := range []int{1, 3} {
+			require.Equal(t, "valid", reason(both(t, vector(t, name), Options{Workers: w}, "")), name)
+		}
+	}
+	for r, s := range map[string]string{"range-3n-1-k12-to-10^5.dcert": "sieve-3n-1-k12.dcert", "range-3n+1-k8-joins-to-2^16.dcert": "sieve-3n+1-k8-joins.dcert"} {
+		require.Equal(t, "valid", reason(both(t, vector(t, r), Options{}, s)), r)
+	}
+	shard := vector(t, "shard-1of2-3n+1-k8.dcert")
+	require.Equal(t, "valid", reason(both(t, shard, Options{}, "")))
+	for _, span := range []kernel.Span{{I: 0, N: 2}, {I: 1, N: 2}} {
+		o := Options{}
+		o.Span = &span
+		require.Equal(t, "valid", reason(both(t, vector(t, "sieve-3n+1-k10.dcert"), o, "")))
+	}
+}
+
+func TestEveryBitFlipAgreesWithTheKernel(t *testing.T) {
+	// Every flip of a sieve with joins and of a range on it: the default
+	// checker and the kernel alone reject each for the same reason.
+	for _, c := range []struct{ file, sieve string }{{"sieve-3n+1-k8-joins.dcert", ""}, {"range-3n-1-k12-to-10^5.dcert", "sieve-3n-1-k12.dcert"}} {
+		good := vector(t, c.file)
+		for i := range len(good) * 8 {
+			if testing.Short() && i%8 != 0 {
+				continue
+			}
+			bad := bytes.Clone(good)
+			bad[i/8] ^= 0x80 >> (i % 8)
+			require.NotEqual(t, "valid", reason(both(t, bad, Options{Workers: 2}, c.sieve)), "%s: bit %d flipped", c.file, i)
 		}
 	}
 }
 
-// referenceRoot computes the root of a certificate file from its layout
-// (SPEC.md, section 2) with BLAKE2b and the recursive Merkle tree hash of
-// RFC 6962, written out here rather than taken from the checker.
-func referenceRoot(t *testing.T, file []byte) string {
-	records := int(binary.BigEndian.Uint32(file[10:]))
-	header := file[:18+int(binary.BigEndian.Uint32(file[14:]))]
-	tree := 0
-	for n := records + 1; ; n = (n + 1) / 2 {
-		tree += n
-		if n == 1 {
-			break
-		}
-	}
-	offs := len(header) + 32*tree
-	leaves := [][]byte{header}
-	for i := 0; i < records; i++ {
-		a := binary.BigEndian.Uint64(file[offs+8*i:])
-		b := binary.BigEndian.Uint64(file[offs+8*i+8:])
-		leaves = append(leaves, file[a:b])
-	}
-	var mth func(d [][]byte) [32]byte
-	mth = func(d [][]byte) [32]byte {
-		if len(d) == 1 {
-			return blake2b.Sum256(append([]byte{0}, d[0]...))
-		}
-		k := 1
-		for 2*k < len(d) {
-			k *= 2
-		}
-		l, r := mth(d[:k]), mth(d[k:])
-		return blake2b.Sum256(append(append([]byte{1}, l[:]...), r[:]...))
-	}
-	h := mth(leaves)
-	return hex.EncodeToString(h[:])
-}
-
-func TestWorkedExampleRoot(t *testing.T) {
-	rep := Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{})
-	require.Equal(t, referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")), rep.Root)
-	for _, name := range valid {
-		require.Equal(t, referenceRoot(t, vector(t, name)), Check(bytes.NewReader(vector(t, name)), Options{}).Root, name)
-	}
-	require.Equal(t, Num("3"), rep.Survivors)
-	require.Equal(t, map[string]Num{"1": "1", "2": "1", "4": "1"}, rep.ClosedAt)
-
-	root, err := ParseRoot(rep.Root)
-	require.NoError(t, err)
-	require.NoError(t, Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{Root: &root}).Err())
-	root[0] ^= 1
-	rep = Check(bytes.NewReader(vector(t, "sieve-3n+1-k4.dcert")), Options{Root: &root})
-	require.ErrorIs(t, rep.Err(), ErrInvalid)
-	require.Equal(t, "root", rep.Reason)
-}
-
-func TestEverySingleBitFlipIsRejected(t *testing.T) {
-	good := vector(t, "sieve-3n+1-k10.dcert")
-	for i := range len(good) * 8 {
-		bad := bytes.Clone(good)
-		bad[i/8] ^= 0x80 >> (i % 8)
-		var verdicts [2]string
-		for p, plain := range []bool{false, true} {
-			rep := Check(bytes.NewReader(bad), Options{Plain: plain})
-			err := rep.Err()
-			require.Error(t, err, "bit %d of byte %d flipped: accepted", i%8, i/8)
-			require.True(t, errors.Is(err, ErrInvalid) || errors.Is(err, ErrMalformed), "bit %d: %v", i, err)
-			verdicts[p] = rep.Reason + ": " + err.Error()
-		}
-		require.Equal(t, verdicts[1], verdicts[0], "the memo changed the verdict for bit %d", i)
-	}
-}
-
-func malformedAt(t *testing.T, b []byte, what string) *Report {
-	t.Helper()
-	rep := Check(bytes.NewReader(b), Options{})
-	require.ErrorIs(t, rep.Err(), ErrMalformed, what)
-	require.Contains(t, rep.Error, "offset", what)
-	return rep
-}
-
-func TestTruncatedAtEveryLength(t *testing.T) {
-	good := vector(t, "sieve-3n+1-k10.dcert")
-	for n := range len(good) {
-		malformedAt(t, good[:n], "truncated")
-	}
-}
-
-func TestBadPreamble(t *testing.T) {
-	good := vector(t, "sieve-3n+1-k4.dcert")
+func TestMemoEntriesAreAllKept(t *testing.T) {
+	// The memo's entries, written here, are the true codes: the kernel
+	// keeps every one it is given, so no speed is lost to a wrong entry.
 	for _, c := range []struct {
-		name   string
-		edit   func(b []byte) []byte
-		reason string
-	}{
-		{"wrong magic", func(b []byte) []byte { b[0] = 'D'; return b }, "not a descent certificate"},
-		{"unknown version", func(b []byte) []byte { b[8] = 3; return b }, "unknown format version 3"},
-		{"format version 1", func(b []byte) []byte { b[8] = 1; return b }, "version 1 is an older format"},
-		{"unknown kind", func(b []byte) []byte { b[9] = 'x'; return b }, "unknown certificate kind"},
-		{"trailing bytes", func(b []byte) []byte { return append(b, 0) }, "follow the last record"},
-		{"leading garbage", func(b []byte) []byte { return append([]byte{0}, b...) }, "not a descent certificate"},
-		{"header longer than the file", func(b []byte) []byte { binary.BigEndian.PutUint32(b[14:], 1<<20); return b }, "file ends inside the header"},
-		{"header over the cap", func(b []byte) []byte { binary.BigEndian.PutUint32(b[14:], 1<<20+1); return b }, "over the cap"},
-	} {
-		rep := malformedAt(t, c.edit(bytes.Clone(good)), c.name)
-		require.Contains(t, rep.Error, c.reason, c.name)
+		m kernel.Map
+		j int
+	}{{kernel.Map{A: 3, B: 1}, 24}, {kernel.Map{A: 3, B: -1}, 20}, {kernel.Map{A: 5, B: 1}, 16}, {kernel.Map{A: 3, B: 1}, 9}} {
+		p := kernel.NewParams(c.m, c.j)
+		m := newMemo(p).(*memo)
+		rows := 0
+		for s, row := range m.codes {
+			for u, e := range row {
+				require.NotNil(t, e, "%v j = %d: the entry for s = %d, u = %d was not kept", c.m, c.j, s, u)
+			}
+			if row != nil {
+				rows++
+			}
+		}
+		require.Positive(t, rows)
 	}
-}
-
-// handHeader builds a sieve header for 3n+1 byte by byte, from SPEC.md.
-func handHeader(records uint32, k, j int) []byte {
-	body := binary.BigEndian.AppendUint32(nil, 3)
-	body = binary.BigEndian.AppendUint32(body, 1)
-	body = append(body, byte(k), byte(j))
-	body = binary.BigEndian.AppendUint32(body, 100000)
-	body = binary.BigEndian.AppendUint16(body, 128)
-	body = binary.BigEndian.AppendUint64(body, 1)
-	body = append(body, make([]byte, 8*j)...)
-	body = binary.BigEndian.AppendUint32(body, 0)
-	b := append([]byte(magic), version, kindSieve)
-	b = binary.BigEndian.AppendUint32(b, records)
-	b = binary.BigEndian.AppendUint32(b, uint32(len(body)))
-	return append(b, body...)
-}
-
-func TestLengthsBeyondTheFileAllocateLittle(t *testing.T) {
-	// A 1 KiB file whose preamble declares 2^23+1 records (the most a
-	// sieve may have) claims a stored tree of 2^24 hashes (512 MiB);
-	// reading it must fail at the end of the file, naming the offset,
-	// without allocating anywhere near that.
-	b := handHeader(1<<23+1, 64, 64)
-	b = append(b, make([]byte, 1024-len(b))...)
-	var before, after runtime.MemStats
-	runtime.GC()
-	runtime.ReadMemStats(&before)
-	rep := Check(bytes.NewReader(b), Options{})
-	runtime.ReadMemStats(&after)
-	require.ErrorIs(t, rep.Err(), ErrMalformed)
-	require.Contains(t, rep.Error, "offset 1024")
-	require.Contains(t, rep.Error, "file ends inside the stored tree")
-	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(1<<20), "allocated %d bytes", after.TotalAlloc-before.TotalAlloc)
-}
-
-func TestFatesByTheCheckersOwnArithmetic(t *testing.T) {
-	sv := newSieve(&sieveHeader{a: 3, b: 1, k: 8, j: 8, cap: 1000, ceiling: 128})
-	// OEIS A126241: under T, 27 first drops below itself after 59 steps.
-	e := sv.fateOf(big.NewInt(27))
-	require.Equal(t, byte(1), e.fate)
-	require.EqualValues(t, 59, e.steps)
-	// From memory: 5n+1 has cycles through 13 (13, 33, 83, 208, 104, 52,
-	// 26) and 17 (17, 43, 108, 54, 27, 68, 34).
-	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1000, ceiling: 128})
-	for _, n := range []int64{1, 13, 17} {
-		e := sv.fateOf(big.NewInt(n))
-		require.Equal(t, byte(2), e.fate, "n = %d", n)
-		require.Equal(t, n, e.cycleMin.Int64())
-	}
-	// 5n+1, n = 7: believed to diverge; within the cap it is undecided.
-	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
-}
-
-func TestFateStopsAtTheCeiling(t *testing.T) {
-	// An orbit of 5n+1 grows by about log2(5/4)/2 = 0.16 bits per step on
-	// average (half the steps multiply by about 5/2, half halve; common
-	// practice, no source), so from 7 it passes 2^128 within about 800
-	// steps: with W = 128 and a cap of 2^24 the fate rule stops there,
-	// undecided, after that many steps, not 2^24.
-	sv := newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1 << 24, ceiling: 128})
-	sv.work = newMeter(big.NewInt(1 << 24))
-	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
-	used := 1<<24 - sv.work.left.Load()
-	require.Less(t, used, int64(5000), "steps taken before the ceiling")
-	// The same orbit under a ceiling of 8192 bits runs longer, but still
-	// stops far before the cap.
-	sv = newSieve(&sieveHeader{a: 5, b: 1, k: 8, j: 8, cap: 1 << 24, ceiling: 8192})
-	sv.work = newMeter(big.NewInt(1 << 24))
-	require.Equal(t, byte(3), sv.fateOf(big.NewInt(7)).fate)
-	require.Greater(t, 1<<24-sv.work.left.Load(), used)
 }

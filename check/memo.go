@@ -1,130 +1,95 @@
 package check
 
-import "encoding/binary"
+import (
+	"sync"
 
-// memo holds the expected codes of the last levels of every subtree. Below
-// depth tb = j - L the codes of a subtree depend only on its odd-step count
-// s and on v mod 2^L, so they are derived once per pair and compared with
-// the chunk as a bit string. A match confirms every claim in the subtree at
-// once; a mismatch sends the walk through the subtree class by class, which
-// names the first false claim. The memo only makes the check faster: the
-// verdict is the same without it.
+	"descent/check/kernel"
+)
+
+// memo holds the codes of the last memoLevels levels of every subtree.
+// Below depth j - L the codes of a subtree depend only on its odd-step
+// count s and on v mod 2^L, so they are written once per pair here and
+// handed to the kernel, which walks each entry class by class
+// (kernel.Params.Subtree) and keeps only the true ones. The walk of a
+// chunk then compares the chunk's bits with a kept entry and takes every
+// claim in the subtree at once; a mismatch, or no kept entry, sends it
+// through the subtree class by class. A wrong entry here costs speed,
+// never soundness: the kernel never takes one it has not walked.
 type memo struct {
 	depth int
 	mask  uint64
-	codes [][]memoCode // [s][v mod 2^L]
-}
-
-type memoCode struct {
-	words     []uint64 // the code, left-aligned
-	n         uint64   // its length in bits
-	survivors uint64
-	closed    []uint64 // closings at steps depth+1..j
+	codes [][]*kernel.Subtree // [s][v mod 2^L]; nil where no entry was kept
 }
 
 const memoLevels = 8
 
-func (sv *sieve) newMemo() *memo {
-	levels := min(memoLevels, sv.j-sv.d)
-	m := &memo{depth: sv.j - levels, mask: 1<<levels - 1, codes: make([][]memoCode, sv.j-levels+1)}
+func newMemo(p *kernel.Params) kernel.Memo {
+	levels := min(memoLevels, p.J-p.D)
+	m := &memo{depth: p.J - levels, mask: 1<<levels - 1, codes: make([][]*kernel.Subtree, p.J-levels+1)}
+	var wg sync.WaitGroup
 	for s := range m.codes {
-		if sv.alen[s] <= m.depth {
+		if p.Closes(m.depth, s) {
 			continue // a class with this few odd steps is closed by now
 		}
-		m.codes[s] = make([]memoCode, 1<<levels)
-		for u := range m.codes[s] {
-			g := &expected{sv: sv, closed: make([]uint64, sv.j+1)}
-			g.subtree(m.depth, s, uint64(u))
-			if g.fill > 0 {
-				g.words = append(g.words, g.acc<<(64-g.fill))
+		m.codes[s] = make([]*kernel.Subtree, 1<<levels)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for u := range m.codes[s] {
+				g := &expected{p: p}
+				g.subtree(m.depth, s, uint64(u))
+				if g.fill > 0 {
+					g.words = append(g.words, g.acc<<(64-g.fill))
+				}
+				m.codes[s][u] = p.Subtree(m.depth, s, uint64(u), g.words, g.n)
 			}
-			m.codes[s][u] = memoCode{words: g.words, n: g.n, survivors: g.survivors, closed: g.closed[m.depth+1:]}
-		}
+		}()
 	}
+	wg.Wait()
 	return m
 }
 
-// expected writes the true codes of a subtree, as the walk expects them.
+func (m *memo) Depth() int { return m.depth }
+
+func (m *memo) Lookup(s int, v uint64) *kernel.Subtree {
+	if s < len(m.codes) && m.codes[s] != nil {
+		return m.codes[s][v&m.mask]
+	}
+	return nil
+}
+
+// expected writes the codes of a subtree as a true certificate has them.
 type expected struct {
-	sv        *sieve
-	words     []uint64
-	acc       uint64
-	fill      uint
-	n         uint64
-	survivors uint64
-	closed    []uint64
+	p     *kernel.Params
+	words []uint64
+	acc   uint64
+	fill  uint
+	n     uint64
 }
 
 func (g *expected) put(b uint64) {
-	g.acc = g.acc<<1 | b
-	g.fill++
-	g.n++
+	g.acc, g.fill, g.n = g.acc<<1|b, g.fill+1, g.n+1
 	if g.fill == 64 {
 		g.words, g.acc, g.fill = append(g.words, g.acc), 0, 0
 	}
 }
 
 func (g *expected) subtree(t, s int, v uint64) {
-	sv := g.sv
-	if t == sv.j {
-		g.survivors++
+	p := g.p
+	if t == p.J {
 		return
 	}
 	even := v & 1
-	if sv.closesAt(t+1, s) {
+	if p.Closes(t+1, s) {
 		g.put(1)
 		g.put(even)
-		g.closed[t+1]++
-		g.subtree(t+1, s+1, (sv.a*(v+(1-even)*sv.apow[s])+sv.b)>>1)
+		next, ns := p.Step(v+(1-even)*p.Pow(s), s)
+		g.subtree(t+1, ns, next)
 		return
 	}
 	g.put(0)
 	for c := uint64(0); c < 2; c++ {
-		vc, sc := sv.step(v+c*sv.apow[s], s)
+		vc, sc := p.Step(v+c*p.Pow(s), s)
 		g.subtree(t+1, sc, vc)
 	}
-}
-
-// window returns the 64 code bits from position pos, zero beyond the end.
-func (w *walk) window(pos uint64) uint64 {
-	at, sh := pos/8, pos%8
-	if at+9 <= uint64(len(w.code)) {
-		return binary.BigEndian.Uint64(w.code[at:])<<sh | uint64(w.code[at+8])>>(8-sh)
-	}
-	var x uint64
-	for i := uint64(0); i < 9; i++ {
-		var b uint64
-		if at+i < uint64(len(w.code)) {
-			b = uint64(w.code[at+i])
-		}
-		if i < 8 {
-			x |= b << (56 - 8*i) << sh
-		} else {
-			x |= b >> (8 - sh)
-		}
-	}
-	return x
-}
-
-// matches reports whether the code at the walk's position is c, and if so
-// moves past it.
-func (w *walk) matches(c *memoCode) bool {
-	if w.pos+c.n > w.nbit {
-		return false
-	}
-	for i, want := range c.words {
-		got := w.window(w.pos + 64*uint64(i))
-		if rest := c.n - 64*uint64(i); rest < 64 {
-			got &^= ^uint64(0) >> rest
-		}
-		if got != want {
-			return false
-		}
-	}
-	w.pos += c.n
-	w.survivors += c.survivors
-	for i, k := range c.closed {
-		w.closed[w.memo.depth+1+i] += k
-	}
-	return true
 }

@@ -7,6 +7,8 @@ import (
 	"sort"
 	"sync"
 	"sync/atomic"
+
+	"descent/check/kernel"
 )
 
 // The checker's own derivation of a block of a range certificate
@@ -49,63 +51,35 @@ func (x wide) parity() uint64 {
 	return x.lo & 1
 }
 
-// searcher holds the arithmetic of one range certificate.
+// searcher holds the arithmetic of one range certificate's search.
 type searcher struct {
-	h     *rangeHeader
-	sv    *sieve // for the closing test and the small bound
+	r     *kernel.Range
+	h     *kernel.RangeHeader
+	m     *kernel.Meter
 	k, d  int
+	a, b  *big.Int
 	pow   []*big.Int // a^s exactly
-	small *big.Int   // numbers up to it are iterated directly
-	stubs []uint64
+	stubs []kernel.Stub
 	limHi uint64 // below it (high word of x) a step stays within 128 bits
 	half  uint64 // (a-1)/2
 	inc   int64  // (b+1)/2
-	// joined[i]: for a sieve with joins, bit x says whether survivor x
-	// below stub i, in the order of the codes, is joined.
-	joined [][]uint64
+	joins bool   // the sieve has joins
 }
 
-// newSearcher sets up the derivation of the blocks of h; joined holds the
-// join flags of its sieve's chunks below the top, if it has joins.
-func newSearcher(h *rangeHeader, joined [][]uint64) *searcher {
-	sh := &sieveHeader{a: h.a, b: h.b, k: h.k, j: h.k, cap: h.cap, ceiling: h.ceiling}
-	sv := newSieve(sh)
-	s := &searcher{h: h, sv: sv, joined: joined, k: h.k, d: splitDepth(h.k), half: uint64(h.a-1) / 2, inc: (int64(h.b) + 1) / 2,
-		limHi: ^uint64(0)/uint64(h.a) - 1}
+// newSearcher sets up the search of the blocks of r.
+func newSearcher(r *kernel.Range) *searcher {
+	h := r.H
+	s := &searcher{r: r, h: h, k: h.K, d: r.P.D, half: uint64(h.A-1) / 2, inc: (int64(h.B) + 1) / 2,
+		limHi: ^uint64(0)/uint64(h.A) - 1, a: big.NewInt(int64(h.A)), b: big.NewInt(int64(h.B)), joins: r.Sieve.Header.Joins}
 	p := big.NewInt(1)
-	for i := 0; i <= h.k; i++ {
+	for i := 0; i <= h.K; i++ {
 		s.pow = append(s.pow, new(big.Int).Set(p))
-		p.Mul(p, sv.A)
+		p.Mul(p, s.a)
 	}
-	s.small = s.smallBound()
-	// The classes open at depth d, in trie order; the sieve certificate,
-	// checked by now, has a record for each.
-	for _, st := range sv.stubList(1 << 24) {
-		s.stubs = append(s.stubs, st.res)
-	}
+	// The classes open at depth d, in trie order; the sieve, checked by
+	// now, has a record for each.
+	s.stubs = r.P.Stubs(1 << 24)
 	return s
-}
-
-// smallBound: for b > 0 the exception bound; for b < 0 the largest n for
-// which an open prefix of i steps with s odd ones might take n below
-// itself, n < s*|b|*a^s / (2*(a^s - 2^i)), i the last depth at which s odd
-// steps are still open (one below the bit length of a^s, at most k).
-func (s *searcher) smallBound() *big.Int {
-	if s.h.b > 0 {
-		return s.sv.exceptionLimit()
-	}
-	limit := new(big.Int)
-	for odd := 1; odd <= s.k; odd++ {
-		p := s.pow[odd]
-		i := min(p.BitLen()-1, s.k)
-		num := new(big.Int).Mul(p, big.NewInt(int64(odd)*int64(-s.h.b)))
-		den := new(big.Int).Sub(p, new(big.Int).Lsh(big.NewInt(1), uint(i)))
-		den.Lsh(den, 1)
-		if q := num.Div(num, den); q.Cmp(limit) > 0 {
-			limit = q
-		}
-	}
-	return limit
 }
 
 // next is T(x), exactly.
@@ -119,8 +93,10 @@ func (s *searcher) next(x wide) wide {
 		}
 	}
 	z := new(big.Int).Set(x.toBig())
-	s.sv.apply(z)
-	return fromBig(z)
+	if z.Bit(0) == 1 {
+		z.Mul(z, s.a).Add(z, s.b)
+	}
+	return fromBig(z.Rsh(z, 1))
 }
 
 // oddStep is (a*x + b)/2 for odd x below the limit: (x >> 1) + x*(a-1)/2 +
@@ -157,7 +133,7 @@ type outcome struct {
 // ceiling (W >= 128). Every step is charged to the block's meter.
 func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 	nw := fromBig(n)
-	for ; i <= s.h.cap; i++ {
+	for ; i <= s.h.Cap; i++ {
 		if nw.big == nil && x.big == nil {
 			if x.hi < nw.hi || (x.hi == nw.hi && x.lo < nw.lo) {
 				return outcome{fate: 1, sigma: i}
@@ -165,25 +141,25 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 		} else if x.toBig().Cmp(n) < 0 {
 			return outcome{fate: 1, sigma: i}
 		}
-		if x.big != nil && x.big.BitLen() > s.h.ceiling {
+		if x.big != nil && x.big.BitLen() > s.h.Ceiling {
 			return outcome{fate: 3}
 		}
-		if i == s.h.cap {
+		if i == s.h.Cap {
 			break
 		}
-		if x = s.next(x); !s.sv.work.charge(1) {
+		if x = s.next(x); !s.m.Charge(1) {
 			return outcome{fate: 3}
 		}
 	}
-	e := s.sv.fateOf(n)
-	return outcome{fate: e.fate, sigma: e.steps, cycleMin: e.cycleMin}
+	e := s.r.P.Fate(n, s.h.Cap, s.h.Ceiling, s.m)
+	return outcome{fate: e.Kind, sigma: e.Steps, cycleMin: e.CycleMin}
 }
 
 // drop steps x = T^i(n) on in 128 bits until it is below n, for numbers n
 // below 2^64. It gives up (false) at the cap or when a step could leave 128
 // bits, and the caller takes the general path from the start.
 func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
-	for ; i <= s.h.cap; i++ {
+	for ; i <= s.h.Cap; i++ {
 		if hi == 0 && lo < n {
 			return i, true
 		}
@@ -203,14 +179,14 @@ func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 // tallies accumulates what one part of a block finds; offsets are from the
 // block's first number x0.
 type tallies struct {
-	counts   [nCounts]uint64
+	counts   [6]uint64
 	rules    []uint64 // numbers justified by each predecessor rule
 	sum      *big.Int
 	maxSigma uint32
 	maxAt    uint64
 	points   []offPoint // the records among the numbers searched, increasing
 	firstAt  map[int]uint64
-	cycles   map[string]*cycleCount
+	cycles   map[string]*kernel.CycleCount
 	undec    []uint64
 }
 
@@ -220,7 +196,7 @@ type offPoint struct {
 }
 
 func newTallies(rules int) *tallies {
-	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*cycleCount{}, rules: make([]uint64, rules)}
+	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*kernel.CycleCount{}, rules: make([]uint64, rules)}
 }
 
 func (t *tallies) drop(off uint64, sigma uint32, rule int) {
@@ -252,16 +228,16 @@ func (t *tallies) note(off uint64, r outcome, rule int) {
 	case 1:
 		t.drop(off, r.sigma, rule)
 	case 2:
-		t.counts[cCycle]++
+		t.counts[kernel.CCycle]++
 		key := r.cycleMin.String()
 		if c := t.cycles[key]; c != nil {
-			c.count.Add(c.count, big.NewInt(1))
+			c.Count.Add(c.Count, big.NewInt(1))
 		} else {
-			t.cycles[key] = &cycleCount{min: r.cycleMin, count: big.NewInt(1)}
+			t.cycles[key] = &kernel.CycleCount{Min: r.cycleMin, Count: big.NewInt(1)}
 		}
 	default:
-		t.counts[cUndecided]++
-		if len(t.undec) <= maxList {
+		t.counts[kernel.CUndecided]++
+		if len(t.undec) <= kernel.MaxList {
 			t.undec = append(t.undec, off)
 		}
 	}
@@ -276,8 +252,7 @@ type part struct {
 	fast     bool
 	from, to uint64
 	t        *tallies
-	joined   []uint64 // the join flags of the stub's survivors, if any
-	surv     int      // survivors visited so far, in the order of the codes
+	surv     int // survivors visited so far, in the order of the codes
 }
 
 // inClass returns how many offsets of [from, to) are congruent to res mod
@@ -310,10 +285,10 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 		if c == 1 {
 			vc = s.plus(v, odd)
 		}
-		if vc.parity() == 0 && s.sv.closesAt(t+1, odd) {
+		if vc.parity() == 0 && s.r.P.Closes(t+1, odd) {
 			cls := res | c<<t
 			if n, first := p.inClass(cls, t+1); n > 0 {
-				p.t.counts[cSieve] += n
+				p.t.counts[kernel.CSieve] += n
 				p.t.sum.Add(p.t.sum, new(big.Int).Mul(new(big.Int).SetUint64(n), big.NewInt(int64(t+1))))
 				if f, ok := p.t.firstAt[t+1]; !ok || first < f {
 					p.t.firstAt[t+1] = first
@@ -330,25 +305,23 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 // T^k(n) = a^s*q + T^k(res).
 func (p *part) survivor(res uint64, odd int, tk wide) {
 	s := p.s
-	x := p.surv
-	p.surv++
-	if p.t.counts[cUndecided] > maxList || s.sv.work.exceeded() {
+	if p.t.counts[kernel.CUndecided] > kernel.MaxList || s.m.Exceeded() {
 		p.stop.Store(true)
 	}
 	if p.stop.Load() {
 		return
 	}
 	n, off := p.inClass(res, s.k)
-	if p.joined != nil && p.joined[x/64]>>(x%64)&1 == 1 {
+	if s.joins && s.r.Sieve.Joined(res) {
 		// Every member above N0 meets a smaller number after k steps.
-		p.t.counts[cJoin] += n
+		p.t.counts[kernel.CJoin] += n
 		return
 	}
 	if p.fast && tk.big == nil && s.pow[odd].BitLen() <= 64 {
 		m := s.pow[odd].Uint64()
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
-			if r := s.h.ruleFor(num); r >= 0 {
+			if r := s.ruleFor(num); r >= 0 {
 				p.t.rules[r]++
 				continue
 			}
@@ -359,70 +332,60 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 			h, c2 := bits.Add64(h, tk.hi, c)
 			if c2 == 0 {
 				if sigma, ok := s.drop(num, h, l, uint32(s.k)); ok {
-					s.sv.work.charge(int64(sigma) - int64(s.k))
-					p.t.note(off, outcome{fate: 1, sigma: sigma}, cSearch)
+					s.m.Charge(int64(sigma) - int64(s.k))
+					p.t.note(off, outcome{fate: 1, sigma: sigma}, kernel.CSearch)
 					continue
 				}
 			}
 			nb := new(big.Int).SetUint64(num)
 			x := new(big.Int).Rsh(nb, uint(s.k))
 			x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
-			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), cSearch)
+			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), kernel.CSearch)
 		}
 		return
 	}
 	for ; n > 0; n, off = n-1, off+1<<s.k {
 		num := new(big.Int).Add(p.x0, new(big.Int).SetUint64(off))
-		if r := s.h.ruleForBig(num); r >= 0 {
+		if r := s.h.RuleFor(num); r >= 0 {
 			p.t.rules[r]++
 			continue
 		}
 		x := new(big.Int).Rsh(num, uint(s.k))
 		x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
-		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), cSearch)
+		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), kernel.CSearch)
 	}
 }
 
 // derive computes the summary of block i from scratch, the work spread
 // over the stubs.
-func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
+func (s *searcher) derive(i int, workers int) *kernel.Block {
 	h := s.h
-	x0 := new(big.Int).Add(h.first, big.NewInt(int64(i)))
-	x0.Lsh(x0, uint(h.e))
-	lo := new(big.Int).Set(x0)
-	if lo.Cmp(h.lo) < 0 {
-		lo.Set(h.lo)
-	}
-	hi := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
-	if hi.Cmp(h.hi) > 0 {
-		hi.Set(h.hi)
-	}
+	lo, hi := h.Bounds(i)
+	x0 := new(big.Int).Lsh(new(big.Int).Rsh(lo, uint(h.E)), uint(h.E))
 	from := new(big.Int).Sub(lo, x0).Uint64()
 	to := new(big.Int).Sub(hi, x0).Uint64()
 	split := from // offsets below split are at most the small bound
-	if above := new(big.Int).Sub(s.small, x0); above.Sign() >= 0 {
+	if above := new(big.Int).Sub(s.r.N0, x0); above.Sign() >= 0 {
 		split = max(from, min(to, above.Uint64()+1))
 	}
 
 	stop := new(atomic.Bool)
-	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.rules)), stop: stop}}
+	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.Rules)), stop: stop}}
 	small := parts[0]
-	for off := small.from; off < small.to && small.t.counts[cUndecided] <= maxList && !s.sv.work.exceeded(); off++ {
+	for off := small.from; off < small.to && small.t.counts[kernel.CUndecided] <= kernel.MaxList && !s.m.Exceeded(); off++ {
 		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
-		small.t.note(off, s.decide(n, fromBig(n), 0), cSmall)
+		small.t.note(off, s.decide(n, fromBig(n), 0), kernel.CSmall)
 	}
-	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), stop: stop}
+	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules)), stop: stop}
 	parts = append(parts, top)
 	top.classes(0, 0, wide{}, 0, s.d)
 	var wg sync.WaitGroup
 	sem := make(chan struct{}, max(workers, 1))
-	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.e)))
+	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.E)))
 	fast := end.BitLen() <= 64
-	for si, res := range s.stubs {
-		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.rules)), fast: fast, stop: stop}
-		if s.joined != nil {
-			p.joined = s.joined[si]
-		}
+	for _, st := range s.stubs {
+		res := st.Res
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules)), fast: fast, stop: stop}
 		if fast {
 			p.x0u = x0.Uint64()
 		}
@@ -444,16 +407,16 @@ func (s *searcher) derive(i int, workers int) (*blockRec, []*big.Int) {
 }
 
 // collect adds up the parts of a block into its record.
-func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
-	b := &blockRec{index: index}
-	sum := &b.sum
-	var counts [nCounts]uint64
+func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
+	b := &kernel.Block{Index: index}
+	sum := &b.Summary
+	var counts [6]uint64
 	var rules []uint64
 	total := new(big.Int)
 	var pts []offPoint
 	var maxSigma uint32
 	var maxAt uint64
-	cycles := map[string]*cycleCount{}
+	cycles := map[string]*kernel.CycleCount{}
 	var undec []uint64
 	firstAt := map[int]uint64{}
 	for _, p := range parts {
@@ -479,9 +442,9 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 		}
 		for key, c := range t.cycles {
 			if m := cycles[key]; m != nil {
-				m.count.Add(m.count, c.count)
+				m.Count.Add(m.Count, c.Count)
 			} else {
-				cycles[key] = &cycleCount{min: c.min, count: new(big.Int).Set(c.count)}
+				cycles[key] = &kernel.CycleCount{Min: c.Min, Count: new(big.Int).Set(c.Count)}
 			}
 		}
 		undec = append(undec, t.undec...)
@@ -495,15 +458,15 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 	}
 	abs := func(off uint64) *big.Int { return new(big.Int).Add(x0, new(big.Int).SetUint64(off)) }
 	for i, c := range counts {
-		sum.counts[i] = new(big.Int).SetUint64(c)
+		sum.Counts[i] = new(big.Int).SetUint64(c)
 	}
-	sum.rules = []*big.Int{}
+	sum.Rules = []*big.Int{}
 	for _, c := range rules {
-		sum.rules = append(sum.rules, new(big.Int).SetUint64(c))
+		sum.Rules = append(sum.Rules, new(big.Int).SetUint64(c))
 	}
-	sum.sum = total
+	sum.Sum = total
 	if maxSigma > 0 {
-		sum.maxSigma, sum.maxAt = maxSigma, abs(maxAt)
+		sum.MaxSigma, sum.MaxAt = maxSigma, abs(maxAt)
 	}
 	// Records: the numbers whose stopping time exceeds that of every
 	// smaller number of the block that drops.
@@ -513,19 +476,33 @@ func collect(index uint32, x0 *big.Int, parts []*part) (*blockRec, []*big.Int) {
 	var best uint32
 	for _, p := range pts {
 		if p.sigma > best {
-			sum.records = append(sum.records, point{n: abs(p.off), sigma: p.sigma})
+			sum.Records = append(sum.Records, kernel.Point{N: abs(p.off), Sigma: p.sigma})
 			best = p.sigma
 		}
 	}
 	for _, c := range cycles {
-		sum.cycles = append(sum.cycles, *c)
+		sum.Cycles = append(sum.Cycles, *c)
 	}
-	sortCycles(sum.cycles)
+	sortCycles(sum.Cycles)
 	sort.Slice(undec, func(i, j int) bool { return undec[i] < undec[j] })
 	for _, off := range undec {
-		b.undecided = append(b.undecided, abs(off))
+		b.Undecided = append(b.Undecided, abs(off))
 	}
-	return b, b.undecided
+	return b
+}
+
+// ruleFor returns the first rule that covers n < 2^64, or -1.
+func (s *searcher) ruleFor(n uint64) int {
+	for i, r := range s.h.Rules {
+		if n >= r.C && (n-r.C)%r.M == 0 {
+			return i
+		}
+	}
+	return -1
+}
+
+func sortCycles(cs []kernel.CycleCount) {
+	sort.Slice(cs, func(i, j int) bool { return cs[i].Min.Cmp(cs[j].Min) < 0 })
 }
 
 func defaultWorkers(w int) int {

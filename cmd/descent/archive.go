@@ -15,6 +15,7 @@ import (
 	"descent/archive"
 	"descent/cert"
 	"descent/check"
+	"descent/check/kernel"
 )
 
 const archiveUsage = `usage:
@@ -224,20 +225,20 @@ func (c *cli) archiveVerify(args []string) int {
 
 // findEntry is one line of 'archive find -json'.
 type findEntry struct {
-	Root      string    `json:"root"`
-	Kind      string    `json:"kind"`
-	Map       string    `json:"map"`
-	K         int       `json:"k,omitempty"`
-	J         int       `json:"j,omitempty"`
-	From      check.Num `json:"from,omitempty"`
-	To        check.Num `json:"to,omitempty"`
-	SieveRoot string    `json:"sieve_root,omitempty"`
-	Claim     string    `json:"claim"`
-	File      string    `json:"file"`
-	Size      int64     `json:"size"`
-	Added     string    `json:"added"`
-	Checked   string    `json:"checked"`
-	CheckMode string    `json:"check_mode"`
+	Root      string `json:"root"`
+	Kind      string `json:"kind"`
+	Map       string `json:"map"`
+	K         int    `json:"k,omitempty"`
+	J         int    `json:"j,omitempty"`
+	From      Num    `json:"from,omitempty"`
+	To        Num    `json:"to,omitempty"`
+	SieveRoot string `json:"sieve_root,omitempty"`
+	Claim     string `json:"claim"`
+	File      string `json:"file"`
+	Size      int64  `json:"size"`
+	Added     string `json:"added"`
+	Checked   string `json:"checked"`
+	CheckMode string `json:"check_mode"`
 }
 
 func (c *cli) archiveFind(args []string) int {
@@ -296,7 +297,7 @@ func (c *cli) archiveFind(args []string) int {
 	}
 	if *asJSON {
 		for _, e := range es {
-			b, err := json.Marshal(findEntry{Root: e.Root, Kind: e.Kind, Map: e.Map, K: e.K, J: e.J, From: check.Num(e.Lo), To: check.Num(e.Hi),
+			b, err := json.Marshal(findEntry{Root: e.Root, Kind: e.Kind, Map: e.Map, K: e.K, J: e.J, From: Num(e.Lo), To: Num(e.Hi),
 				SieveRoot: e.SieveRoot, Claim: e.Claim, File: filepath.Join(dir, filepath.FromSlash(e.Path)), Size: e.Size,
 				Added: e.Added, Checked: e.Checked, CheckMode: e.CheckMode})
 			if err != nil {
@@ -327,6 +328,7 @@ func joinKinds() string { return strings.Join(archive.Kinds, ", ") }
 func checkForArchive(s archive.Subject) (archive.Verdict, error) {
 	kind, sieveRoot := peekCertificate(io.NewSectionReader(s.R, 0, s.Size))
 	var o check.Options
+	var sievePath string
 	switch kind {
 	case cert.KindShard:
 		return archive.Verdict{}, fmt.Errorf("%w: a shard file; merge the shards ('descent merge') and archive the whole certificate", archive.ErrMalformed)
@@ -336,14 +338,15 @@ func checkForArchive(s archive.Subject) (archive.Verdict, error) {
 			if err != nil {
 				return archive.Verdict{}, err
 			}
-			o.Sieve = path
+			sievePath = path
 		}
 		o.Sample = s.Sample // an audit is of a range's blocks
 	}
-	rep := check.Check(io.NewSectionReader(s.R, 0, s.Size), o)
+	chk := newChecker(o, sievePath, false)
+	rep := reportOf(check.Check(s.R, s.Size, chk.o), "")
 	if err := rep.Err(); err != nil {
 		class := archive.ErrMalformed
-		if errors.Is(err, check.ErrInvalid) {
+		if errors.Is(err, kernel.ErrInvalid) {
 			class = archive.ErrInvalid
 		}
 		if rep.Reason == class.Error() {

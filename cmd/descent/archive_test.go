@@ -103,13 +103,7 @@ func TestArchiveDamageAndLossThroughTheCLI(t *testing.T) {
 
 // buildKillable builds descent with the archivekill tag, whose archive add
 // can be told (DESCENT_ARCHIVE_PAUSE) to stop at a named point.
-func buildKillable(t *testing.T) string {
-	t.Helper()
-	bin := filepath.Join(t.TempDir(), "descent")
-	out, err := exec.Command("go", "build", "-tags", "archivekill", "-o", bin, ".").CombinedOutput()
-	require.NoError(t, err, "%s", out)
-	return bin
-}
+func buildKillable(t *testing.T) string { return buildBinary(t, "archivekill") }
 
 // lockedBuffer collects a child's stderr while the test polls it.
 type lockedBuffer struct {

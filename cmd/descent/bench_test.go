@@ -142,7 +142,7 @@ func BenchmarkJoins(b *testing.B) {
 			})
 			b.Run(name+"/check", func(b *testing.B) {
 				for range b.N {
-					if rep := check.File(path, check.Options{}); !rep.Valid {
+					if rep := newChecker(check.Options{}, "", false).file(path); !rep.Valid {
 						b.Fatal(rep.Err())
 					}
 				}
@@ -158,7 +158,7 @@ func BenchmarkCheck(b *testing.B) {
 			res := emitFile(b, k, path)
 			b.ResetTimer()
 			for range b.N {
-				if rep := check.File(path, check.Options{}); !rep.Valid {
+				if rep := newChecker(check.Options{}, "", false).file(path); !rep.Valid {
 					b.Fatal(rep.Err())
 				}
 			}
@@ -265,6 +265,41 @@ func BenchmarkRangeRules(b *testing.B) {
 				all := new(big.Int).Add(searched, ruled)
 				share, _ := new(big.Rat).SetFrac(ruled, all).Float64()
 				b.ReportMetric(share, "ruled/survivor-number")
+			})
+		}
+	}
+}
+
+// BenchmarkCheckKernel checks a k = 32 sieve and a range of 2^26 numbers
+// from 2^60 on a k = 24 sieve (one block of 2^28), by the default checker
+// and by its kernel alone (check -reference); the kernel's slow-down is
+// the ratio of the medians.
+//
+//	go test ./cmd/descent -run '^$' -bench CheckKernel -benchtime 1x -count 5
+func BenchmarkCheckKernel(b *testing.B) {
+	dir := b.TempDir()
+	s32, s24, r26 := filepath.Join(dir, "s32.dcert"), filepath.Join(dir, "s24.dcert"), filepath.Join(dir, "r26.dcert")
+	emitFile(b, 32, s32)
+	res := emitFile(b, 24, s24)
+	lo := new(big.Int).Lsh(big.NewInt(1), 60)
+	f, err := os.Create(r26)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := emit.RangeParams{Sieve: res.Header, SieveRoot: res.Root, Lo: lo, Hi: new(big.Int).Add(lo, big.NewInt(1<<26)), E: 28}
+	if _, err := emit.Range(context.Background(), f, p, emit.RangeOptions{}); err != nil {
+		b.Fatal(err)
+	}
+	f.Close()
+	for _, ref := range []bool{false, true} {
+		name := map[bool]string{false: "default", true: "reference"}[ref]
+		for _, c := range []struct{ what, file, sieve string }{{"sieve-k=32", s32, ""}, {"range-2^26", r26, s24}} {
+			b.Run(c.what+"/"+name, func(b *testing.B) {
+				for range b.N {
+					if rep := newChecker(check.Options{}, c.sieve, ref).file(c.file); !rep.Valid {
+						b.Fatal(rep.Err())
+					}
+				}
 			})
 		}
 	}

@@ -7,6 +7,7 @@ import (
 	"strings"
 
 	"descent/check"
+	"descent/check/kernel"
 )
 
 func (c *cli) check(args []string) int {
@@ -21,6 +22,7 @@ func (c *cli) check(args []string) int {
 	part := fs.String("part", "", "check only record `P`, or share i/N, against -root through the Merkle audit path")
 	receiptOut := fs.String("receipt", "", "write a signed receipt of the check to `OUT` (one certificate; needs -sign)")
 	signKey := fs.String("sign", "", "sign the receipt with the secret key `NAME.key` ('descent key new')")
+	reference := fs.Bool("reference", false, "check with the trusted kernel alone, without the fast paths: slower, the same verdict")
 	budgetFlag := fs.String("budget", "", "the most work to allow, in `steps` of T (like 2^40; default 2^48): a certificate whose work bound exceeds it is reported beyond limits before that work")
 	if code, stop := c.parse(fs, args); stop {
 		return code
@@ -45,7 +47,7 @@ func (c *cli) check(args []string) int {
 		// blocks the draw misses (SPEC.md, "Audits").
 		c.errorf("warning: -seed %q: an audit proves something only if the seed was chosen after the root was published, by someone the writer could not predict; without -seed the checker draws one at random", *seed)
 	}
-	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
+	o := check.Options{Workers: *workers, Options: kernel.Options{Sample: *sampleN, Seed: *seed}}
 	if *budgetFlag != "" {
 		b, err := parseNumber(*budgetFlag)
 		if err != nil || b.Sign() <= 0 || !b.IsUint64() {
@@ -60,14 +62,14 @@ func (c *cli) check(args []string) int {
 			c.errorf("check: %v", err)
 			return exitUsage
 		}
-		o.Span = &check.Span{I: sh.I, N: sh.N}
+		o.Span = &kernel.Span{I: sh.I, N: sh.N}
 	}
 	if *part != "" && (*rootHex == "" || fs.NArg() != 1) {
 		c.errorf("check: -part needs -root HEX, the published root, and one certificate")
 		return exitUsage
 	}
 	if *rootHex != "" {
-		root, err := check.ParseRoot(*rootHex)
+		root, err := kernel.ParseHash(*rootHex)
 		if err != nil {
 			c.errorf("check: -root: %v", err)
 			return exitUsage
@@ -78,21 +80,22 @@ func (c *cli) check(args []string) int {
 		return exitUsage
 	}
 	status := exitOK
+	chk := newChecker(o, *sieve, *reference)
 	for _, path := range fs.Args() {
 		if c.censusNotCheckable(path) {
 			status = max(status, exitUsage)
 			continue
 		}
-		var rep *check.Report
+		var rep *Report
 		update, finish := c.progress("records")
-		o.Progress = nil
+		chk.o.Progress = nil
 		if update != nil {
-			o.Progress = func(done, total int) { update(done, total, "") }
+			chk.o.Progress = func(done, total int) { update(done, total, "") }
 		}
 		if *part != "" {
-			rep = check.Part(path, *part, *o.Root, o)
+			rep = chk.part(path, *part, *o.Root)
 		} else {
-			rep = check.File(path, o)
+			rep = chk.file(path)
 		}
 		finish()
 		status = max(status, exitStatus(rep))
@@ -111,11 +114,11 @@ func (c *cli) check(args []string) int {
 	return status
 }
 
-func exitStatus(rep *check.Report) int {
+func exitStatus(rep *Report) int {
 	switch err := rep.Err(); {
 	case err == nil:
 		return exitOK
-	case errors.Is(err, check.ErrInvalid):
+	case errors.Is(err, kernel.ErrInvalid):
 		return exitInvalid
 	}
 	return exitUsage
@@ -123,7 +126,7 @@ func exitStatus(rep *check.Report) int {
 
 // words fills in the claim of a valid report in words, and the standard
 // steps of its stated stopping times.
-func words(rep *check.Report) {
+func words(rep *Report) {
 	if !rep.Valid {
 		return
 	}
@@ -132,7 +135,7 @@ func words(rep *check.Report) {
 		addStandardSteps(rep)
 		f := rangeFactsFromReport(rep)
 		rep.Claim, rep.NotProven = f.sentence(), f.caveat()
-		if rep.Mode != check.ModeFull {
+		if rep.Mode != ModeFull {
 			rep.Claim = "As written, and re-derived only as far as \"checked\" says: " + rep.Claim
 		}
 	case rep.Kind == "sieve" || rep.Kind == "sieve shard":
@@ -151,46 +154,46 @@ func words(rep *check.Report) {
 // every chunk of the whole.
 const joinsAsWritten = "(The count of joins is as written: a check of part of the chunks cannot confirm it.)"
 
-func joinsUnconfirmed(rep *check.Report) bool {
-	return rep.Joined != "" && (rep.Mode != check.ModeFull || rep.Shard != nil)
+func joinsUnconfirmed(rep *Report) bool {
+	return rep.Joined != "" && (rep.Mode != ModeFull || rep.Shard != nil)
 }
 
 // verdict is the first line of a report on a valid certificate: what was
 // checked, never more.
-func verdict(rep *check.Report) string {
+func verdict(rep *Report) string {
 	whole := rep.Kind + " certificate"
 	if s := rep.Shard; s != nil {
 		whole = fmt.Sprintf("shard %d of %d (%s) of a %s certificate", s.Index, s.Of, spanText(rep, s), strings.TrimSuffix(rep.Kind, " shard"))
 	}
 	switch rep.Mode {
-	case check.ModeAudit:
+	case ModeAudit:
 		return fmt.Sprintf("passes an audit of %d of %d %s, not a full check of this %s", rep.Audit.Audited, rep.Audit.Blocks, unitWord(rep, rep.Audit.Blocks), whole)
-	case check.ModeShare:
+	case ModeShare:
 		if rep.ShareIsAll() {
 			return fmt.Sprintf("valid as far as checked: %s (share %d of %d: all of them) re-derived, as 'checked' says, of this %s", spanText(rep, rep.Span), rep.Span.Index, rep.Span.Of, whole)
 		}
 		return fmt.Sprintf("valid as far as checked: %s (share %d of %d) re-derived, not a full check of this %s", spanText(rep, rep.Span), rep.Span.Index, rep.Span.Of, whole)
-	case check.ModePart:
+	case ModePart:
 		return fmt.Sprintf("valid as far as checked: %s, against the given root, not a full check of this %s", spanText(rep, rep.Span), whole)
 	}
 	return "valid " + whole
 }
 
-func unitWord(rep *check.Report, n int) string {
+func unitWord(rep *Report, n int) string {
 	if strings.HasPrefix(rep.Kind, "range") {
 		return agree(n, "block", "blocks")
 	}
 	return agree(n, "chunk", "chunks")
 }
 
-func spanText(rep *check.Report, s *check.SpanReport) string {
+func spanText(rep *Report, s *SpanReport) string {
 	if s.Count == 1 {
 		return fmt.Sprintf("%s %d", unitWord(rep, 1), s.First)
 	}
 	return fmt.Sprintf("%s %d to %d", unitWord(rep, 2), s.First, s.First+s.Count-1)
 }
 
-func (c *cli) printReport(rep *check.Report) {
+func (c *cli) printReport(rep *Report) {
 	w := c.stdout
 	if rep.Valid {
 		fmt.Fprintf(w, "%s: %s\n  root       %s\n", rep.File, verdict(rep), rep.Root)
@@ -213,7 +216,7 @@ func (c *cli) printReport(rep *check.Report) {
 		switch {
 		case rng && rep.Kind == "range":
 			f := rangeFactsFromReport(rep)
-			if rep.Mode == check.ModeFull {
+			if rep.Mode == ModeFull {
 				fmt.Fprintf(w, "  claim      %s\n  hence      %s\n", f.summary(), strings.TrimPrefix(f.conclusion(), "Hence, by strong induction, "))
 			} else {
 				fmt.Fprintf(w, "  as written %s\n", f.summary())
@@ -229,7 +232,7 @@ func (c *cli) printReport(rep *check.Report) {
 		}
 		return
 	}
-	if errors.Is(rep.Err(), check.ErrUsage) {
+	if errors.Is(rep.Err(), kernel.ErrUsage) {
 		// The reader's own mistake, not a fault of the certificate.
 		c.errorf("%s: %v", rep.File, rep.Err())
 		if rep.Hint != "" {
@@ -239,9 +242,9 @@ func (c *cli) printReport(rep *check.Report) {
 	}
 	verdict := "INVALID"
 	switch err := rep.Err(); {
-	case errors.Is(err, check.ErrLimits):
+	case errors.Is(err, kernel.ErrLimits):
 		verdict = "BEYOND THIS CHECKER'S LIMITS, neither valid nor invalid"
-	case errors.Is(err, check.ErrMalformed):
+	case errors.Is(err, kernel.ErrMalformed):
 		verdict = "MALFORMED"
 	}
 	fmt.Fprintf(w, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())

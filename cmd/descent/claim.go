@@ -7,7 +7,6 @@ import (
 	"strings"
 
 	"descent/cert"
-	"descent/check"
 )
 
 // facts is the claim of a sieve certificate, gathered either from the
@@ -41,30 +40,30 @@ func factsFromHeader(h *cert.SieveHeader) facts {
 }
 
 // sieveReport is a report of the claim as written in a sieve header: it
-// re-derives nothing (check.ModeUnchecked).
-func sieveReport(h *cert.SieveHeader, root cert.Hash, chunks int) *check.Report {
-	r := &check.Report{Mode: check.ModeUnchecked, Kind: "sieve", Root: root.String(), Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling,
-		Chunks: chunks, Survivors: check.Num(fmt.Sprint(h.Survivors)), ClosedAt: map[string]check.Num{}, Exceptions: []check.ExceptionReport{}}
+// re-derives nothing (ModeUnchecked).
+func sieveReport(h *cert.SieveHeader, root cert.Hash, chunks int) *Report {
+	r := &Report{Mode: ModeUnchecked, Kind: "sieve", Root: root.String(), Map: h.Map.String(), K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling,
+		Chunks: chunks, Survivors: Num(fmt.Sprint(h.Survivors)), ClosedAt: map[string]Num{}, Exceptions: []ExceptionReport{}}
 	if h.Joins { // survivors: the classes still to search
-		r.Survivors = check.Num(fmt.Sprint(h.Survivors - h.Joined))
-		r.Joined, r.SieveSurvivors = check.Num(fmt.Sprint(h.Joined)), check.Num(fmt.Sprint(h.Survivors))
+		r.Survivors = Num(fmt.Sprint(h.Survivors - h.Joined))
+		r.Joined, r.SieveSurvivors = Num(fmt.Sprint(h.Joined)), Num(fmt.Sprint(h.Survivors))
 	}
 	for t, n := range h.ClosedAt {
 		if n > 0 {
-			r.ClosedAt[fmt.Sprint(t+1)] = check.Num(fmt.Sprint(n))
+			r.ClosedAt[fmt.Sprint(t+1)] = Num(fmt.Sprint(n))
 		}
 	}
 	for _, e := range h.Exceptions {
-		x := check.ExceptionReport{N: check.Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
+		x := ExceptionReport{N: Num(e.N.String()), Fate: e.Fate.String(), Steps: e.Steps}
 		if e.Fate == cert.Cycle {
-			x.CycleMin = check.Num(e.CycleMin.String())
+			x.CycleMin = Num(e.CycleMin.String())
 		}
 		r.Exceptions = append(r.Exceptions, x)
 	}
 	return r
 }
 
-func factsFromReport(r *check.Report) facts {
+func factsFromReport(r *Report) facts {
 	f := facts{Map: r.Map, K: r.K, J: r.J, Cap: r.Cap, Ceiling: r.Ceiling}
 	f.Survivors, _ = strconv.ParseUint(string(r.Survivors), 10, 64)
 	if r.Joined != "" {

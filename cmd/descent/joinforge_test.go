@@ -10,7 +10,8 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"descent/cert"
-	"descent/check"
+	"descent/check/kernel"
+	"descent/internal/certtest"
 )
 
 // joinCut is a sieve certificate with joins taken apart: for each chunk
@@ -58,19 +59,17 @@ func (c *joinCut) seal(t *testing.T) []byte {
 	t.Helper()
 	hb, err := c.h.Marshal()
 	require.NoError(t, err)
-	var f memFile
-	w, err := cert.NewWriter(&f, hb)
-	require.NoError(t, err)
+	var recs [][]byte
 	for i, ch := range c.chunks {
 		rec := ch.Marshal()
 		if i > 0 {
 			rec = cert.AppendJoins(rec, c.joins[i])
 		}
-		require.NoError(t, w.WriteRecord(rec, cert.LeafHash(rec)))
+		recs = append(recs, rec)
 	}
-	_, _, err = w.Close()
+	b, err := certtest.Seal(hb, recs)
 	require.NoError(t, err)
-	return f.b
+	return b
 }
 
 // claim sets the join of survivor number x of chunk i to delta (0: none),
@@ -200,8 +199,8 @@ func TestJoinForgeriesAreCaught(t *testing.T) {
 			require.Equal(t, exitInvalid, code, "%v", rep)
 			require.Equal(t, false, rep["valid"])
 			require.Equal(t, f.reason, rep["reason"], "%v", rep["error"])
-			_, listed := check.LookupReason(f.reason)
-			require.True(t, listed, "reason %q is listed in check.Reasons", f.reason)
+			_, listed := kernel.LookupReason(f.reason)
+			require.True(t, listed, "reason %q is listed in kernel.Reasons", f.reason)
 			require.NotEmpty(t, rep["where"])
 		})
 	}

@@ -18,7 +18,18 @@ import (
 )
 
 func TestMain(m *testing.M) {
-	testscript.Main(m, map[string]func(){"descent": main})
+	testscript.Main(removeBinaries{m}, map[string]func(){"descent": main})
+}
+
+// removeBinaries runs the tests, then removes the binaries built for them.
+type removeBinaries struct{ m *testing.M }
+
+func (r removeBinaries) Run() int {
+	code := r.m.Run()
+	if built.dir != "" {
+		os.RemoveAll(built.dir)
+	}
+	return code
 }
 
 // TestScripts runs the scripts in testdata/script, which assert the

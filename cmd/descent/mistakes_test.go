@@ -18,7 +18,7 @@ func TestReadersMistakesExitTwo(t *testing.T) {
 	require.Equal(t, exitOK, first(runCLI("emit", "sieve", "-k", "10", "-o", s10)))
 	require.Equal(t, exitOK, first(runCLI("emit", "sieve", "-k", "12", "-o", s12)))
 	require.Equal(t, exitOK, first(runCLI("emit", "range", "-sieve", s12, "-to", "2^16", "-o", r)))
-	rep := check.File(s12, check.Options{})
+	rep := newChecker(check.Options{}, "", false).file(s12)
 	require.NoError(t, rep.Err())
 	for name, args := range map[string][]string{
 		"no sieve":            {"check", r},

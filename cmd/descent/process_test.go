@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -21,12 +22,32 @@ import (
 // Tests of the descent binary as a process: memory, kills, write errors
 // and determinism, which an in-process call cannot show.
 
-func buildBinary(t *testing.T) string {
+// buildBinary builds descent once for all the tests of the process (in
+// binDir, which TestMain removes at the end), with the given build tags.
+func buildBinary(t *testing.T, tags ...string) string {
 	t.Helper()
-	bin := filepath.Join(t.TempDir(), "descent")
-	out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput()
+	built.Lock()
+	defer built.Unlock()
+	name := strings.Join(append([]string{"descent"}, tags...), "-")
+	if built.bins == nil {
+		dir, err := os.MkdirTemp("", "descent-test-")
+		require.NoError(t, err)
+		built.dir, built.bins = dir, map[string]string{}
+	}
+	if bin, ok := built.bins[name]; ok {
+		return bin
+	}
+	bin := filepath.Join(built.dir, name)
+	out, err := exec.Command("go", "build", "-tags", strings.Join(tags, ","), "-o", bin, ".").CombinedOutput()
 	require.NoError(t, err, "%s", out)
+	built.bins[name] = bin
 	return bin
+}
+
+var built struct {
+	sync.Mutex
+	dir  string
+	bins map[string]string // by name: descent, descent-archivekill
 }
 
 type run struct {
@@ -204,12 +225,24 @@ func TestKilledEmitLeavesNoCertificate(t *testing.T) {
 	rng := rand.New(rand.NewPCG(9, 9))
 	finished, killed := 0, 0
 	for i := range 12 {
-		cmd := exec.Command(bin, "emit", "sieve", "-k", "34", "-o", target)
-		require.NoError(t, cmd.Start())
-		time.Sleep(time.Duration(rng.IntN(300)) * time.Millisecond)
-		require.NoError(t, cmd.Process.Signal(syscall.SIGKILL))
-		err := cmd.Wait()
-		if err == nil { // it finished before the kill: then it must be whole
+		// Each run is killed at a state drawn at random, not after a time:
+		// at once, or once its temporary file holds a random share of the
+		// certificate's bytes, so that the test does not depend on the
+		// machine's speed.
+		p := start(t, bin, "emit", "sieve", "-k", "34", "-o", target)
+		if at := rng.Int64N(int64(len(whole))); i%4 != 0 {
+			p.until(t, func() bool {
+				for _, l := range leftovers(t, target) {
+					if fi, err := os.Stat(l); err == nil && fi.Size() > at {
+						return true
+					}
+				}
+				return false
+			})
+		}
+		p.cmd.Process.Signal(syscall.SIGKILL) // an error: it has finished
+		<-p.done
+		if p.err == nil { // it finished before the kill: then it must be whole
 			finished++
 			r := runBinary(t, bin, nil, "check", target)
 			require.Equal(t, exitOK, r.code, "run %d finished but its certificate fails: %s", i, r.stdout)

@@ -7,26 +7,27 @@ import (
 
 	"descent/cert"
 	"descent/check"
+	"descent/check/kernel"
 )
 
 // rangeFacts is the claim of a range certificate, from its header (show,
 // emit) or from the checker's report (check): both go through a
-// check.Report, so that the words are made once from one set of fields.
+// Report, so that the words are made once from one set of fields.
 type rangeFacts struct {
 	Map, Lo, Hi, SieveRoot string
 	K, E                   int
 	Cap                    uint32
 	Ceiling                int
-	Counts                 check.RangeCounts
-	Records                []check.RecordReport // over the numbers with a stated stopping time
-	Max                    *check.RecordReport  // the same
-	Cycles                 []check.CycleReport
+	Counts                 RangeCounts
+	Records                []RecordReport // over the numbers with a stated stopping time
+	Max                    *RecordReport  // the same
+	Cycles                 []CycleReport
 	// Below is what the numbers below Lo reach, derived by direct
 	// iteration when Lo <= 2; nil when not derived.
-	Below *[]check.ExceptionReport
+	Below *[]ExceptionReport
 }
 
-func num(x fmt.Stringer) check.Num { return check.Num(x.String()) }
+func num(x fmt.Stringer) Num { return Num(x.String()) }
 
 func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 	return rangeFactsFromReport(rangeReport(h, cert.Hash{}, nil))
@@ -34,31 +35,31 @@ func rangeFactsFromHeader(h *cert.RangeHeader) rangeFacts {
 
 // rangeReport is a report of the claim as written in a range header, with
 // the undecided numbers read from its blocks: it re-derives nothing of the
-// certificate (check.ModeUnchecked). What 1 reaches, when the range starts
+// certificate (ModeUnchecked). What 1 reaches, when the range starts
 // at 2, is a fact about the map alone and is derived by iteration.
-func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *check.Report {
+func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *Report {
 	t := &h.Totals
-	r := &check.Report{Mode: check.ModeUnchecked, Kind: "range", Root: root.String(), Map: h.Map.String(), SieveRoot: h.SieveRoot.String(),
+	r := &Report{Mode: ModeUnchecked, Kind: "range", Root: root.String(), Map: h.Map.String(), SieveRoot: h.SieveRoot.String(),
 		From: num(h.Lo), To: num(h.Hi), K: h.K, BlockExp: h.E, Cap: h.Cap, Ceiling: h.Ceiling, Chunks: h.Blocks,
-		Counts: &check.RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
-			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []check.RuleReport{}},
-		Records: []check.RecordReport{}, Cycles: []check.CycleReport{}, Undecided: []check.Num{},
-		Below: check.FatesBelow(h.Map.A, h.Map.B, h.Cap, h.Ceiling, h.Lo)}
+		Counts: &RangeCounts{Sieve: num(t.Sieve), Join: num(t.Join), Search: num(t.Search), Small: num(t.Small), Cycle: num(t.Cycle),
+			Undecided: num(t.Undecided), StoppingTimeSum: num(t.SigmaSum), Rules: []RuleReport{}},
+		Records: []RecordReport{}, Cycles: []CycleReport{}, Undecided: []Num{},
+		Below: belowReport(check.FatesBelow(kernel.Map{A: h.Map.A, B: h.Map.B}, h.Cap, h.Ceiling, h.Lo))}
 	for i, x := range h.Rules {
-		rr := check.RuleReport{Class: fmt.Sprintf("%d*q+%d", x.M, x.C), Predecessor: fmt.Sprintf("%d*q+%d", x.Mp, x.Cp), Steps: x.Steps, Numbers: "0"}
+		rr := RuleReport{Class: fmt.Sprintf("%d*q+%d", x.M, x.C), Predecessor: fmt.Sprintf("%d*q+%d", x.Mp, x.Cp), Steps: x.Steps, Numbers: "0"}
 		if i < len(t.Rules) {
 			rr.Numbers = num(t.Rules[i])
 		}
 		r.Counts.Rules = append(r.Counts.Rules, rr)
 	}
 	for _, p := range t.Records {
-		r.Records = append(r.Records, check.RecordReport{N: num(p.N), StoppingTime: p.Sigma})
+		r.Records = append(r.Records, RecordReport{N: num(p.N), StoppingTime: p.Sigma})
 	}
 	if t.MaxAt != nil {
-		r.MaxStoppingTime = &check.RecordReport{N: num(t.MaxAt), StoppingTime: t.MaxSigma}
+		r.MaxStoppingTime = &RecordReport{N: num(t.MaxAt), StoppingTime: t.MaxSigma}
 	}
 	for _, c := range t.Cycles {
-		r.Cycles = append(r.Cycles, check.CycleReport{Min: num(c.Min), Count: num(c.Count)})
+		r.Cycles = append(r.Cycles, CycleReport{Min: num(c.Min), Count: num(c.Count)})
 	}
 	for _, n := range undecided {
 		r.Undecided = append(r.Undecided, num(n))
@@ -66,7 +67,7 @@ func rangeReport(h *cert.RangeHeader, root cert.Hash, undecided []*big.Int) *che
 	return r
 }
 
-func rangeFactsFromReport(r *check.Report) rangeFacts {
+func rangeFactsFromReport(r *Report) rangeFacts {
 	f := rangeFacts{Map: r.Map, Lo: string(r.From), Hi: string(r.To), SieveRoot: r.SieveRoot, K: r.K, E: r.BlockExp, Cap: r.Cap, Ceiling: r.Ceiling,
 		Records: r.Records, Max: r.MaxStoppingTime, Cycles: r.Cycles, Below: r.Below}
 	if r.Counts != nil {
@@ -77,7 +78,7 @@ func rangeFactsFromReport(r *check.Report) rangeFacts {
 
 // addStandardSteps works out the standard steps of the stopping times a
 // report states (its maximum and records), within a bound on the work.
-func addStandardSteps(r *check.Report) {
+func addStandardSteps(r *Report) {
 	st := newStandard(r.Map)
 	if r.MaxStoppingTime != nil {
 		r.MaxStoppingTime.StandardSteps = st.steps(string(r.MaxStoppingTime.N), r.MaxStoppingTime.StoppingTime)
@@ -132,7 +133,7 @@ func (f rangeFacts) undecidedDef() string {
 func (f rangeFacts) joins() bool { return f.Counts.Join != "" && f.Counts.Join != "0" }
 
 // stoppingTimeText is a stopping time with its step convention.
-func stoppingTimeText(r *check.RecordReport) string {
+func stoppingTimeText(r *RecordReport) string {
 	s := count(r.StoppingTime, "step", "steps") + " of T"
 	if r.StandardSteps > 0 {
 		s += fmt.Sprintf(" (%d standard)", r.StandardSteps)

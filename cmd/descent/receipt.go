@@ -9,7 +9,7 @@ import (
 	"time"
 
 	"descent/cert"
-	"descent/check"
+	"descent/check/kernel"
 	"descent/receipt"
 )
 
@@ -23,7 +23,7 @@ const receiptUsage = `usage:
 // and VCS revision from the one reading of the build information that
 // 'descent version' and 'check -json' print.
 func checkerVersion() string {
-	v := check.Version()
+	v := Version()
 	s := v.Module + " " + v.Version
 	if v.Revision != "" {
 		s += " rev " + v.Revision
@@ -94,8 +94,8 @@ func readKey(path string) (string, error) {
 // write signs and writes the receipt of rep. A certificate that could not
 // be read or checked (malformed, beyond the limits) gets none. It returns
 // the exit status the receipt adds.
-func (j *receiptJob) write(c *cli, rep *check.Report, part string) int {
-	if err := rep.Err(); rep.Root == "" || err != nil && !errors.Is(err, check.ErrInvalid) {
+func (j *receiptJob) write(c *cli, rep *Report, part string) int {
+	if err := rep.Err(); rep.Root == "" || err != nil && !errors.Is(err, kernel.ErrInvalid) {
 		c.errorf("check: %s: no receipt written: the certificate could not be checked (%s)", rep.File, rep.Reason)
 		return exitOK
 	}
@@ -114,7 +114,7 @@ func (j *receiptJob) write(c *cli, rep *check.Report, part string) int {
 
 // receiptOf is the receipt of a check: the claim in the words check
 // prints, and the mode from what the report says was re-derived.
-func receiptOf(rep *check.Report, part, checker string, t time.Time) *receipt.Receipt {
+func receiptOf(rep *Report, part, checker string, t time.Time) *receipt.Receipt {
 	r := &receipt.Receipt{Root: rep.Root, Kind: rep.Kind, Map: rep.Map, K: rep.K, Checker: checker, Time: t,
 		Result: receipt.Result{Valid: rep.Valid, Reason: rep.Reason}}
 	switch rep.Kind {

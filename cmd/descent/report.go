@@ -3,7 +3,6 @@ package main
 import (
 	"bytes"
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
@@ -12,10 +11,9 @@ import (
 	"sort"
 	"strconv"
 
-	"golang.org/x/crypto/blake2b"
-
 	"descent/cert"
 	"descent/check"
+	"descent/check/kernel"
 	"descent/report"
 )
 
@@ -63,7 +61,7 @@ func (c *cli) report(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 
-	o := check.Options{Workers: *workers, Sieve: *sieve, Sample: *sampleN, Seed: *seed}
+	chk := newChecker(check.Options{Workers: *workers, Options: kernel.Options{Sample: *sampleN, Seed: *seed}}, *sieve, false)
 	page := &report.Page{
 		Title: "descent report",
 		Intro: []string{"Each certificate below was checked by descent's independent checker before this page was written. " +
@@ -74,7 +72,7 @@ func (c *cli) report(ctx context.Context, args []string) int {
 	status := exitOK
 	var failed []string
 	for _, path := range fs.Args() {
-		rep := check.File(path, o)
+		rep := chk.file(path)
 		status = max(status, exitStatus(rep))
 		if !rep.Valid {
 			failed = append(failed, path)
@@ -108,7 +106,7 @@ func (c *cli) report(ctx context.Context, args []string) int {
 }
 
 // reportSection puts one checker report into the page's words.
-func reportSection(rep *check.Report, sievePath string) report.Section {
+func reportSection(rep *Report, sievePath string) report.Section {
 	s := report.Section{Title: rep.File, Kind: rep.Kind, Root: rep.Root}
 	if s.Kind == "" {
 		s.Kind = "certificate"
@@ -130,13 +128,13 @@ func reportSection(rep *check.Report, sievePath string) report.Section {
 	return s
 }
 
-func failedSection(rep *check.Report, s report.Section) report.Section {
+func failedSection(rep *Report, s report.Section) report.Section {
 	s.Status, s.Root = report.Failed, ""
 	s.Verdict = "INVALID: the certificate does not prove what it says"
 	switch err := rep.Err(); {
-	case errors.Is(err, check.ErrLimits):
+	case errors.Is(err, kernel.ErrLimits):
 		s.Verdict = "beyond this checker's limits: neither shown valid nor shown invalid"
-	case errors.Is(err, check.ErrMalformed):
+	case errors.Is(err, kernel.ErrMalformed):
 		s.Verdict = "MALFORMED or unreadable: not checked"
 	}
 	if rep.Root != "" {
@@ -153,7 +151,7 @@ func failedSection(rep *check.Report, s report.Section) report.Section {
 	return s
 }
 
-func shardSection(rep *check.Report, s report.Section) report.Section {
+func shardSection(rep *Report, s report.Section) report.Section {
 	s.Status = report.Partial
 	if sh := rep.Shard; sh != nil {
 		s.Verdict = fmt.Sprintf("valid shard %d of %d (records %d to %d) of a whole certificate: the claims of its own records are re-derived",
@@ -168,7 +166,7 @@ func shardSection(rep *check.Report, s report.Section) report.Section {
 
 // sieveSection: the claim in the words of show and check, the survivors
 // after each step, the classes closing at each step, and the exceptions.
-func sieveSection(rep *check.Report, s report.Section) report.Section {
+func sieveSection(rep *Report, s report.Section) report.Section {
 	f := factsFromReport(rep)
 	s.Status = report.Checked
 	s.Verdict = "valid sieve certificate: every claim re-derived and every hash verified"
@@ -254,7 +252,7 @@ func ratio(x *big.Int, t int) float64 {
 	return v
 }
 
-func toFloat(n check.Num) float64 {
+func toFloat(n Num) float64 {
 	x, ok := new(big.Int).SetString(string(n), 10)
 	if !ok {
 		return 0
@@ -266,7 +264,7 @@ func toFloat(n check.Num) float64 {
 // rangeSection: the claim in the words of show and check, how the numbers
 // are justified, the stopping-time records, and the largest stopping time
 // per block.
-func rangeSection(rep *check.Report, s report.Section, sievePath string) report.Section {
+func rangeSection(rep *Report, s report.Section, sievePath string) report.Section {
 	f := rangeFactsFromReport(rep)
 	s.Status = report.Checked
 	s.Verdict = "valid range certificate: every block re-derived and every hash verified"
@@ -290,10 +288,8 @@ func rangeSection(rep *check.Report, s report.Section, sievePath string) report.
 	if a := rep.Audit; a != nil {
 		s.Facts = append(s.Facts, report.Fact{Label: "audit seed", Value: fmt.Sprintf("%s (repeat the audit with -seed %s)", a.Seed, a.Seed)})
 		drawn = map[int]bool{}
-		if root, err := cert.ParseHash(rep.Root); err == nil {
-			for _, i := range auditDraw(root, a.Seed, a.Blocks, a.Audited) {
-				drawn[i] = true
-			}
+		for _, i := range a.Drawn {
+			drawn[i] = true
 		}
 		odds := report.Figure{ID: "audit", Title: "What the audit shows",
 			Caption: "The chance that this audit passes although some blocks are wrong, drawing without replacement.",
@@ -320,7 +316,7 @@ func rangeSection(rep *check.Report, s report.Section, sievePath string) report.
 	}
 	type row struct {
 		short, long string
-		n           check.Num
+		n           Num
 	}
 	rows := []row{
 		{"sieve", "in a closing class of the sieve (stopping time = its closing step)", f.Counts.Sieve},
@@ -368,11 +364,11 @@ func rangeSection(rep *check.Report, s report.Section, sievePath string) report.
 	lo, _ := new(big.Int).SetString(f.Lo, 10)
 	hi, _ := new(big.Int).SetString(f.Hi, 10)
 	wide := lo == nil || hi == nil || hi.Cmp(new(big.Int).Mul(lo, big.NewInt(100))) >= 0
-	xOf := func(n check.Num) float64 { return toFloat(n) }
+	xOf := func(n Num) float64 { return toFloat(n) }
 	xAxis := report.Axis{Label: "n (log scale)", Log: true}
 	scale := "n on a log scale"
 	if !wide {
-		xOf = func(n check.Num) float64 {
+		xOf = func(n Num) float64 {
 			x, _ := new(big.Int).SetString(string(n), 10)
 			v, _ := new(big.Float).SetInt(x.Sub(x, lo)).Float64()
 			return v
@@ -455,7 +451,7 @@ const maxReportBlocks = 1 << 14
 // consistent, its root to be the root the checker established, and every
 // record to match its leaf: the records are then the ones bound to that
 // root, whatever happened to the file since the check.
-func boundBlocks(rep *check.Report) ([]blockSpan, error) {
+func boundBlocks(rep *Report) ([]blockSpan, error) {
 	if rep.Chunks > maxReportBlocks {
 		return nil, fmt.Errorf("the certificate has %d blocks, more than the %d this page draws", rep.Chunks, maxReportBlocks)
 	}
@@ -521,7 +517,7 @@ type blockSpan struct {
 }
 
 // blockOf finds the block that holds n.
-func blockOf(spans []blockSpan, n check.Num) (int, bool) {
+func blockOf(spans []blockSpan, n Num) (int, bool) {
 	x, ok := new(big.Int).SetString(string(n), 10)
 	if !ok {
 		return 0, false
@@ -566,27 +562,4 @@ func blockMaxFigure(spans []blockSpan, f rangeFacts, steps, among string, status
 		fig.Caption += " In this audit only the blocks drawn were re-derived; the others are bound to the root by their hashes."
 	}
 	return fig
-}
-
-// auditDraw repeats the checker's draw of audited blocks, as SPEC.md
-// ("Audits") defines it: key = BLAKE2b-256("descent audit" 00 || root ||
-// seed); the c-th candidate is the first 8 bytes of BLAKE2b-256(key || c
-// as u64), big-endian, mod m; repeats are skipped until n are drawn. The
-// checker reports the seed, not the blocks, so the page derives them to
-// say which blocks were re-derived (TestReportAuditDrawIsTheCheckers).
-func auditDraw(root cert.Hash, seed string, m, n int) []int {
-	if n > m {
-		n = m
-	}
-	key := blake2b.Sum256(append(append([]byte("descent audit\x00"), root[:]...), seed...))
-	seen := map[int]bool{}
-	var out []int
-	for c := uint64(0); len(out) < n; c++ {
-		h := blake2b.Sum256(binary.BigEndian.AppendUint64(bytes.Clone(key[:]), c))
-		if i := int(binary.BigEndian.Uint64(h[:8]) % uint64(m)); !seen[i] {
-			seen[i] = true
-			out = append(out, i)
-		}
-	}
-	return out
 }

@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"encoding/binary"
 	"encoding/json"
 	"fmt"
 	"image"
@@ -20,6 +21,7 @@ import (
 	"github.com/chromedp/cdproto/network"
 	"github.com/chromedp/chromedp"
 	"github.com/stretchr/testify/require"
+	"golang.org/x/crypto/blake2b"
 
 	"descent/cert"
 )
@@ -276,9 +278,9 @@ func TestReportBrowserChecksCanFail(t *testing.T) {
 	require.Zero(t, inkShare(img))
 }
 
-// The page names the blocks an audit re-derived. The checker reports the
-// seed, not the blocks; the page draws them again by SPEC.md. With one
-// forged block, an audit fails exactly when that draw holds the block.
+// The checker's draw of audited blocks is SPEC.md's: with one forged
+// block, an audit fails exactly when the draw written from SPEC.md here
+// holds the block.
 func TestReportAuditDrawIsTheCheckers(t *testing.T) {
 	dir := t.TempDir()
 	sieve, good := filepath.Join(dir, "sieve.dcert"), filepath.Join(dir, "range.dcert")
@@ -305,7 +307,7 @@ func TestReportAuditDrawIsTheCheckers(t *testing.T) {
 	caught, passed := 0, 0
 	for seed := range 24 {
 		code, rep := checkRangeJSON(t, forgedFile, sieve, "-sample", "3", "-seed", strconv.Itoa(seed))
-		drawn := auditDraw(root, strconv.Itoa(seed), len(c.blocks), 3)
+		drawn := specDraw(root, strconv.Itoa(seed), len(c.blocks), 3)
 		require.Len(t, drawn, 3)
 		hit := false
 		for _, i := range drawn {
@@ -349,7 +351,7 @@ func TestReportLabelsAnAudit(t *testing.T) {
 	require.Equal(t, 27, strings.Count(blocks, "<td>bound to the root by its hash, not re-derived</td></tr>"), "block rows hash-bound")
 	rd, err := cert.NewReader(bytes.NewReader(mustRead(t, p("r.dcert"))))
 	require.NoError(t, err)
-	for _, b := range auditDraw(rd.Root(), "reviewer", 32, 5) {
+	for _, b := range specDraw(rd.Root(), "reviewer", 32, 5) {
 		require.Contains(t, blocks, fmt.Sprintf("<tr><td>%d</td>", b))
 		row := blocks[strings.Index(blocks, fmt.Sprintf("<tr><td>%d</td>", b)):]
 		row = row[:strings.Index(row, "</tr>")]
@@ -411,4 +413,22 @@ func TestReportOutputsAndFailures(t *testing.T) {
 	require.NotContains(t, failed, "<svg")
 	require.NotContains(t, failed, "Claim")
 	require.Equal(t, 2, strings.Count(s[:i], "<svg"), "the valid sieve keeps its plots")
+}
+
+// specDraw is the draw of audited blocks written from SPEC.md ("Audits"),
+// apart from the checker's: key = BLAKE2b-256("descent audit" 00 || root
+// || seed); the c-th candidate is the first 8 bytes of BLAKE2b-256(key ||
+// c as u64), big-endian, mod m; repeats are skipped until n are drawn.
+func specDraw(root cert.Hash, seed string, m, n int) []int {
+	key := blake2b.Sum256(append(append([]byte("descent audit\x00"), root[:]...), seed...))
+	seen := map[int]bool{}
+	var out []int
+	for c := uint64(0); len(out) < min(n, m); c++ {
+		h := blake2b.Sum256(binary.BigEndian.AppendUint64(bytes.Clone(key[:]), c))
+		if i := int(binary.BigEndian.Uint64(h[:8]) % uint64(m)); !seen[i] {
+			seen[i] = true
+			out = append(out, i)
+		}
+	}
+	return out
 }

@@ -12,7 +12,6 @@ import (
 	"text/tabwriter"
 
 	"descent/cert"
-	"descent/check"
 )
 
 func (c *cli) show(args []string) int {
@@ -353,7 +352,7 @@ func (c *cli) showShard(path string, asJSON bool) int {
 		span = fmt.Sprintf("%s %d", strings.TrimSuffix(unit, "s"), h.First)
 	}
 	if asJSON {
-		return c.writeJSON(shardShow{File: path, Mode: check.ModeUnchecked, Checked: "nothing: the shard as written, whose stored tree agrees with its header",
+		return c.writeJSON(shardShow{File: path, Mode: ModeUnchecked, Checked: "nothing: the shard as written, whose stored tree agrees with its header",
 			Kind: kind + " shard", ShardRoot: rd.Root().String(), Index: h.Index, Of: h.Of, First: h.First, Count: h.Count, Whole: summary})
 	}
 	fmt.Fprintf(c.stdout, "%s: shard %d of %d of a %s certificate\n\n", path, h.Index, h.Of, kind)

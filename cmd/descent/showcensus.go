@@ -9,7 +9,6 @@ import (
 	"text/tabwriter"
 
 	"descent/cert"
-	"descent/check"
 )
 
 // readCensus reads a census certificate's header, checks its stored tree
@@ -68,7 +67,7 @@ func (c *cli) showCensus(path string, asJSON bool) int {
 	}
 	f := censusFactsFromHeader(h, undecided)
 	if asJSON {
-		return c.writeJSON(f.json(path, root.String(), check.ModeUnchecked,
+		return c.writeJSON(f.json(path, root.String(), ModeUnchecked,
 			"nothing: the claim as written, whose stored tree agrees with its header and blocks"))
 	}
 	w := c.stdout

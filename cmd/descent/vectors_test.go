@@ -20,6 +20,8 @@ import (
 
 	"descent/cert"
 	"descent/check"
+	"descent/check/kernel"
+	"descent/internal/certtest"
 )
 
 // Hostile test vectors (testdata/vectors): each file is one certificate
@@ -381,35 +383,19 @@ func layoutBoundaries(b []byte) []int {
 // reseal rebuilds a certificate from its header bytes and records, with
 // every hash and offset recomputed.
 func reseal(header []byte, recs [][]byte) []byte {
-	binary.BigEndian.PutUint32(header[10:], uint32(len(recs)))
-	var f memFile
-	w, err := cert.NewWriter(&f, header)
+	b, err := certtest.Seal(header, recs)
 	if err != nil {
 		panic(err)
 	}
-	for _, r := range recs {
-		if err := w.WriteRecord(r, cert.LeafHash(r)); err != nil {
-			panic(err)
-		}
-	}
-	if _, _, err := w.Close(); err != nil {
-		panic(err)
-	}
-	return f.b
+	return b
 }
 
 func records(b []byte) (header []byte, recs [][]byte) {
-	rd, err := cert.NewReader(bytes.NewReader(b))
+	header, recs, err := certtest.Records(b)
 	if err != nil {
 		panic(err)
 	}
-	for {
-		r, err := rd.Next()
-		if err != nil {
-			return append([]byte(nil), rd.Header...), recs
-		}
-		recs = append(recs, r)
-	}
+	return header, recs
 }
 
 func generate(t *testing.T) []vector {
@@ -655,10 +641,14 @@ func TestVectors(t *testing.T) {
 		got["decoder"], _ = classify(v.data)
 		path := filepath.Join(dir, "v.dcert")
 		require.NoError(t, os.WriteFile(path, v.data, 0o644))
-		rep := check.Check(bytes.NewReader(v.data), check.Options{Sieve: sieves[v.sieve]})
+		rep := newChecker(check.Options{}, sieves[v.sieve], false).file(path)
 		got["check"] = checkClass(rep)
-		if _, listed := check.LookupReason(rep.Reason); rep.Reason != "" && !listed {
-			failures = append(failures, fmt.Sprintf("%s: reason %q is not listed in check.Reasons", v.name, rep.Reason))
+		// The kernel alone (check -reference) gives the same verdict and reason.
+		if ref := newChecker(check.Options{}, sieves[v.sieve], true).file(path); ref.Valid != rep.Valid || ref.Reason != rep.Reason {
+			failures = append(failures, fmt.Sprintf("%s: the kernel alone says %v %q (%v), the default checker %v %q (%v)", v.name, ref.Valid, ref.Reason, ref.Err(), rep.Valid, rep.Reason, rep.Err()))
+		}
+		if _, listed := kernel.LookupReason(rep.Reason); rep.Reason != "" && !listed {
+			failures = append(failures, fmt.Sprintf("%s: reason %q is not listed in kernel.Reasons", v.name, rep.Reason))
 		}
 		code, _, _ := runCLI("show", path)
 		got["show"] = map[int]string{exitOK: "ok", exitInvalid: "hash", exitUsage: "malformed"}[code]
@@ -696,14 +686,14 @@ func TestVectors(t *testing.T) {
 }
 
 // checkClass maps a checker report to a vector outcome.
-func checkClass(rep *check.Report) string {
+func checkClass(rep *Report) string {
 	err := rep.Err()
 	switch {
 	case err == nil:
 		return "valid"
-	case errors.Is(err, check.ErrLimits):
+	case errors.Is(err, kernel.ErrLimits):
 		return "limits"
-	case errors.Is(err, check.ErrMalformed):
+	case errors.Is(err, kernel.ErrMalformed):
 		return "malformed"
 	case rep.Reason == "hash" || rep.Reason == "tree" || rep.Reason == "root":
 		return "hash"

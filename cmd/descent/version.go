@@ -2,8 +2,6 @@ package main
 
 import (
 	"fmt"
-
-	"descent/check"
 )
 
 // version prints the module version, the VCS revision and the Go version
@@ -19,7 +17,7 @@ func (c *cli) version(args []string) int {
 		c.errorf("version: unexpected argument %q", fs.Arg(0))
 		return exitUsage
 	}
-	v := check.Version()
+	v := Version()
 	if *asJSON {
 		return c.writeJSON(v)
 	}

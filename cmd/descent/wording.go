@@ -12,7 +12,7 @@ import (
 // show, check and emit say the same thing the same way.
 
 // integer is what a count may be: a machine integer or a decimal string
-// (check.Num) for counts beyond 64 bits.
+// (Num) for counts beyond 64 bits.
 type integer interface {
 	~int | ~int64 | ~uint32 | ~uint64 | ~string
 }

@@ -8,8 +8,6 @@ import (
 	"testing"
 
 	"github.com/stretchr/testify/require"
-
-	"descent/check"
 )
 
 func TestCountTakesTheNumber(t *testing.T) {
@@ -19,7 +17,7 @@ func TestCountTakesTheNumber(t *testing.T) {
 	}{
 		{0, "0 numbers"}, {1, "1 number"}, {2, "2 numbers"},
 		{uint64(1), "1 number"}, {uint32(2), "2 numbers"},
-		{check.Num("0"), "0 numbers"}, {check.Num("1"), "1 number"}, {check.Num("100000000000000000000"), "100000000000000000000 numbers"},
+		{Num("0"), "0 numbers"}, {Num("1"), "1 number"}, {Num("100000000000000000000"), "100000000000000000000 numbers"},
 	} {
 		var got string
 		switch n := c.n.(type) {
@@ -29,7 +27,7 @@ func TestCountTakesTheNumber(t *testing.T) {
 			got = count(n, "number", "numbers")
 		case uint32:
 			got = count(n, "number", "numbers")
-		case check.Num:
+		case Num:
 			got = count(n, "number", "numbers")
 		}
 		require.Equal(t, c.want, got)
@@ -108,16 +106,16 @@ func TestWordingAgreesWithCounts(t *testing.T) {
 			sf.Exceptions = append(sf.Exceptions, excFact{N: fmt.Sprint(i + 1), Fate: "descends", Steps: uint32(n)})
 		}
 		rf := rangeFacts{Map: "5n+1", Lo: "1", Hi: "100", SieveRoot: "00", K: 8, E: 12, Cap: uint32(one),
-			Counts: check.RangeCounts{Sieve: check.Num(s), Search: check.Num(s), Small: check.Num(s), Cycle: check.Num(s), Undecided: check.Num(s),
-				StoppingTimeSum: check.Num(s)}}
+			Counts: RangeCounts{Sieve: Num(s), Search: Num(s), Small: Num(s), Cycle: Num(s), Undecided: Num(s),
+				StoppingTimeSum: Num(s)}}
 		for i := 0; i < n; i++ {
-			rf.Counts.Rules = append(rf.Counts.Rules, check.RuleReport{Class: "5*q+3", Predecessor: "2*q+1", Steps: n, Numbers: check.Num(s)})
-			rf.Cycles = append(rf.Cycles, check.CycleReport{Min: check.Num(fmt.Sprint(13 + i)), Count: check.Num(s)})
+			rf.Counts.Rules = append(rf.Counts.Rules, RuleReport{Class: "5*q+3", Predecessor: "2*q+1", Steps: n, Numbers: Num(s)})
+			rf.Cycles = append(rf.Cycles, CycleReport{Min: Num(fmt.Sprint(13 + i)), Count: Num(s)})
 		}
 		if n > 0 {
-			rf.Max = &check.RecordReport{N: "7", StoppingTime: uint32(n), StandardSteps: uint64(n)}
+			rf.Max = &RecordReport{N: "7", StoppingTime: uint32(n), StandardSteps: uint64(n)}
 		}
-		below := []check.ExceptionReport{}
+		below := []ExceptionReport{}
 		rf.Below = &below
 		for _, text := range []string{sf.summary(), sf.sentence(), sf.caveat(), rf.summary(), rf.sentence(), rf.caveat()} {
 			text = strings.ReplaceAll(text, "survivor class", "survivorclass") // one noun

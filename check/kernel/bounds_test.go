@@ -1,4 +1,4 @@
-package check
+package kernel
 
 import (
 	"bytes"
@@ -20,43 +20,40 @@ func TestPartAllocatesOnlyWhatTheFileHolds(t *testing.T) {
 	offsets := len(b) - 15 - 15 - 8 // the third offset: the end of record 1
 	start := binary.BigEndian.Uint64(b[offsets-8:])
 	binary.BigEndian.PutUint64(b[offsets:], start+1<<30-1)
-	path := filepath.Join(t.TempDir(), "long.dcert")
-	require.NoError(t, os.WriteFile(path, b, 0o644))
-	root, err := ParseRoot(referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")))
+	root, err := ParseHash(referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")))
 	require.NoError(t, err)
 	var before, after runtime.MemStats
 	runtime.GC()
 	runtime.ReadMemStats(&before)
-	rep := Part(path, "1", root, Options{})
+	rep := Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
 	runtime.ReadMemStats(&after)
 	require.ErrorIs(t, rep.Err(), ErrMalformed)
-	require.Contains(t, rep.Error, "file ends inside the record 1")
+	require.Contains(t, rep.Err().Error(), "file ends inside the record 1")
 	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(1<<20), "allocated %d bytes", after.TotalAlloc-before.TotalAlloc)
 
 	// A record count far beyond what the file can hold is refused before
 	// anything is sized by it.
 	b = vector(t, "sieve-3n+1-k4.dcert")
 	binary.BigEndian.PutUint32(b[10:], 1<<23+1)
-	require.NoError(t, os.WriteFile(path, b, 0o644))
 	runtime.GC()
 	runtime.ReadMemStats(&before)
-	rep = Part(path, "1", root, Options{})
+	rep = Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
 	runtime.ReadMemStats(&after)
 	require.ErrorIs(t, rep.Err(), ErrMalformed)
 	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(1<<20), "allocated %d bytes", after.TotalAlloc-before.TotalAlloc)
 }
 
 func TestPartOutOfRangeIsTheReadersMistake(t *testing.T) {
-	path := filepath.Join("..", "testdata", "sieve-3n+1-k4.dcert")
-	root, err := ParseRoot(referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")))
+	b := vector(t, "sieve-3n+1-k4.dcert")
+	root, err := ParseHash(referenceRoot(t, b))
 	require.NoError(t, err)
 	for _, part := range []string{"2", "-1", "x", "0/0", "2/2", "1/3"} {
-		rep := Part(path, part, root, Options{})
+		rep := Part(bytes.NewReader(b), int64(len(b)), part, root, Options{})
 		require.ErrorIs(t, rep.Err(), ErrUsage, part)
-		require.Equal(t, ReasonPart, rep.Reason, part)
-		require.NotEmpty(t, rep.Hint, part)
+		require.Equal(t, ReasonPart, rep.Failure.Reason, part)
+		require.NotEmpty(t, rep.Failure.Hint, part)
 	}
-	rep := Part(path, "1", root, Options{})
+	rep := Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
 	require.NoError(t, rep.Err())
 }
 
@@ -65,24 +62,24 @@ func TestBudgetRefusesBeforeTheWork(t *testing.T) {
 	// numbers, each with a work bound of 2^13 + 2^15 + S (S its sum of
 	// stopping times; no cycle or undecided number but n = 1).
 	b := vector(t, rangeVector)
-	o := Options{Sieve: sievePath("sieve-3n+1-k12.dcert")}
-	rep := Check(bytes.NewReader(b), o)
+	o := Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert")}
+	rep := checkBytes(b, o)
 	require.NoError(t, rep.Err())
 	o.Budget = 1 << 20
-	rep = Check(bytes.NewReader(b), o)
+	rep = checkBytes(b, o)
 	require.ErrorIs(t, rep.Err(), ErrLimits)
-	require.Equal(t, ReasonLimits, rep.Reason)
-	require.Contains(t, rep.Error, "more than the budget of 1048576")
+	require.Equal(t, ReasonLimits, rep.Failure.Reason)
+	require.Contains(t, rep.Err().Error(), "more than the budget of 1048576")
 	// An audit of one block needs less than the whole.
 	o.Sample, o.Seed = 1, "a seed"
-	rep = Check(bytes.NewReader(b), o)
+	rep = checkBytes(b, o)
 	require.NoError(t, rep.Err())
 
 	// A sieve: E*j + 3*C*X = 46*12 + 3*100000*1 for 3n+1 with j = 12.
 	s := vector(t, "sieve-3n+1-k12.dcert")
-	rep = Check(bytes.NewReader(s), Options{Budget: 300000})
+	rep = checkBytes(s, Options{Budget: 300000})
 	require.ErrorIs(t, rep.Err(), ErrLimits)
-	rep = Check(bytes.NewReader(s), Options{Budget: 300000 + 46*12})
+	rep = checkBytes(s, Options{Budget: 300000 + 46*12})
 	require.NoError(t, rep.Err())
 }
 
@@ -95,10 +92,10 @@ func TestEveryReasonHasOneClass(t *testing.T) {
 			errors.Is(r.Class, ErrLimits) || errors.Is(r.Class, ErrUsage), r.Code)
 	}
 	// The table in SPEC.md lists the same reasons with the same classes.
-	spec, err := os.ReadFile(filepath.Join("..", "cert", "SPEC.md"))
+	spec, err := os.ReadFile(filepath.Join("..", "..", "cert", "SPEC.md"))
 	require.NoError(t, err)
 	names := map[error]string{ErrMalformed: "malformed", ErrInvalid: "invalid", ErrLimits: "limits", ErrUsage: "usage"}
-	readme, err := os.ReadFile(filepath.Join("..", "README.md"))
+	readme, err := os.ReadFile(filepath.Join("..", "..", "README.md"))
 	require.NoError(t, err)
 	for _, r := range Reasons {
 		require.Contains(t, string(spec), "| `"+r.Code+"` | "+names[r.Class]+" |", r.Code)
@@ -109,12 +106,12 @@ func TestEveryReasonHasOneClass(t *testing.T) {
 func TestProgressReachesTheEnd(t *testing.T) {
 	var last, total int
 	o := Options{Progress: func(d, n int) { last, total = d, n }}
-	rep := Check(bytes.NewReader(vector(t, "sieve-3n+1-k12.dcert")), o)
+	rep := checkBytes(vector(t, "sieve-3n+1-k12.dcert"), o)
 	require.NoError(t, rep.Err())
 	require.Positive(t, total)
 	require.Equal(t, total, last)
-	o.Sieve = sievePath("sieve-3n+1-k12.dcert")
-	rep = Check(bytes.NewReader(vector(t, rangeVector)), o)
+	o.Sieve = sieveOf(t, "sieve-3n+1-k12.dcert")
+	rep = checkBytes(vector(t, rangeVector), o)
 	require.NoError(t, rep.Err())
 	require.Equal(t, 64, total, "the blocks of the range")
 	require.Equal(t, total, last)
@@ -125,23 +122,20 @@ func TestRangeOnASieveWithJoins(t *testing.T) {
 	// members above N0 of the joined classes (3, counted here from the
 	// sieve's own join sections) are justified by the join.
 	b := vector(t, "range-3n+1-k8-joins-to-2^16.dcert")
-	rep := Check(bytes.NewReader(b), Options{Sieve: sievePath("sieve-3n+1-k8-joins.dcert")})
+	rep := checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k8-joins.dcert")})
 	require.NoError(t, rep.Err())
-	require.NotEqual(t, Num("0"), rep.Counts.Join)
-	d, err := Decode(bytes.NewReader(vector(t, "sieve-3n+1-k8-joins.dcert")))
-	require.NoError(t, err)
-	joined := 0
-	for _, c := range d.Chunks {
-		for _, j := range c.Joined {
-			if j {
-				joined++
-			}
+	sieve, fl := sieveOf(t, "sieve-3n+1-k8-joins.dcert")(rep.File.Range.SieveRoot)
+	require.Nil(t, fl)
+	var joined []uint64
+	for r := range uint64(1 << 8) {
+		if sieve.Joined(r) {
+			joined = append(joined, r)
 		}
 	}
-	require.Equal(t, 3, joined)
+	require.Len(t, joined, 3)
 	// Each joined class mod 2^8 has 2^8 members in [1, 2^16), less those
 	// at or below N0 (46 for 3n+1 with k = 8: s = 5 odd steps close at
 	// t = 8, floor(5*243/(2*13)) = 46), none here: the joined residues lie
 	// above it.
-	require.Equal(t, Num("768"), rep.Counts.Join)
+	require.Equal(t, "768", rep.File.Range.Totals.Counts[CJoin].String())
 }

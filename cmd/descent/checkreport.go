@@ -1,4 +1,4 @@
-package check
+package main
 
 import (
 	"bytes"
@@ -10,31 +10,20 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+
+	"descent/check"
+	"descent/check/kernel"
 )
 
-// Failure is the first thing found wrong, with where it was found.
-type Failure struct {
-	Class  error  // ErrMalformed, ErrInvalid, ErrLimits or ErrUsage
-	Reason string // a stable code, listed in Reasons
-	Msg    string
-	Hint   string // for the reader's own mistakes: what to do instead
-	Where  Where
-}
+// The report of a check, as check -json writes it and as show, report,
+// receipts and the archive read it: made here from the checker's plain
+// result (package check/kernel), or from a header as written (show).
 
-func (f *Failure) Error() string {
-	if loc := f.Where.String(); loc != "" {
-		return loc + ": " + f.Msg
-	}
-	return f.Msg
-}
-
-func (f *Failure) Unwrap() error { return f.Class }
-
-// Where locates a failure. Zero fields are unknown or do not apply.
+// Where locates a failure in a report: kernel.Where with JSON keys.
 type Where struct {
-	Offset   *int64 `json:"offset,omitempty"` // a byte offset in the file
+	Offset   *int64 `json:"offset,omitempty"`
 	Chunk    *int   `json:"chunk,omitempty"`
-	Residue  string `json:"residue,omitempty"` // the class Residue mod 2^Step
+	Residue  string `json:"residue,omitempty"`
 	Step     int    `json:"step,omitempty"`
 	N        string `json:"n,omitempty"`
 	Claim    string `json:"claim,omitempty"`
@@ -51,23 +40,6 @@ func (w Where) MarshalJSON() ([]byte, error) {
 		Residue Num `json:"residue,omitempty"`
 		N       Num `json:"n,omitempty"`
 	}{plain(w), Num(w.Residue), Num(w.N)})
-}
-
-func (w Where) String() string {
-	var parts []string
-	if w.Chunk != nil {
-		parts = append(parts, fmt.Sprintf("chunk %d", *w.Chunk))
-	}
-	if w.Residue != "" {
-		parts = append(parts, fmt.Sprintf("class %s mod 2^%d", w.Residue, w.Step))
-	}
-	if w.N != "" {
-		parts = append(parts, "n = "+w.N)
-	}
-	if w.Offset != nil {
-		parts = append(parts, fmt.Sprintf("offset %d", *w.Offset))
-	}
-	return strings.Join(parts, ", ")
 }
 
 // Num is a non-negative integer that JSON carries as a number up to 2^53
@@ -95,11 +67,11 @@ type ExceptionReport struct {
 // a full check of the whole certificate only in ModeFull on a file that is
 // not a shard; Checked says in words what was re-derived.
 const (
-	ModeFull      = "full"      // every record of the file
-	ModeAudit     = "audit"     // the blocks of a range drawn by a seed
-	ModeShare     = "share"     // share i of N of the file's records
-	ModePart      = "part"      // records of a whole certificate, against a published root
-	ModeUnchecked = "unchecked" // nothing: the claim as written (descent show)
+	ModeFull      = kernel.ModeFull  // every record of the file
+	ModeAudit     = kernel.ModeAudit // the blocks of a range drawn by a seed
+	ModeShare     = kernel.ModeShare // share i of N of the file's records
+	ModePart      = kernel.ModePart  // records of a whole certificate, against a published root
+	ModeUnchecked = "unchecked"      // nothing: the claim as written (descent show)
 )
 
 // Report is the outcome of checking one certificate. The claim fields come
@@ -157,7 +129,7 @@ type Report struct {
 	Hint   string // for the reader's own mistakes: what to do instead
 	Where  *Where
 
-	failure *Failure
+	failure *kernel.Failure
 }
 
 // Err returns nil for a valid certificate and the failure otherwise.
@@ -168,20 +140,12 @@ func (r *Report) Err() error {
 	return r.failure
 }
 
-func (r *Report) fail(f *Failure) *Report {
+func (r *Report) fail(f *kernel.Failure) *Report {
 	r.Valid, r.failure = false, f
 	r.Reason, r.Error, r.Hint = f.Reason, f.Error(), f.Hint
-	w := f.Where
+	w := Where(f.Where)
 	r.Where = &w
 	return r
-}
-
-func malformed(off int64, format string, args ...any) *Failure {
-	return &Failure{Class: ErrMalformed, Reason: ReasonMalformed, Msg: fmt.Sprintf(format, args...), Where: Where{Offset: &off}}
-}
-
-func invalid(reason string, w Where, format string, args ...any) *Failure {
-	return &Failure{Class: ErrInvalid, Reason: reason, Msg: fmt.Sprintf(format, args...), Where: w}
 }
 
 // RangeCounts says how the numbers of a range are justified.
@@ -249,6 +213,7 @@ type Audit struct {
 	Seed        string       `json:"seed"`
 	SeedFrom    string       `json:"seed_from"`
 	PassIfWrong []PassChance `json:"pass_if_wrong"`
+	Drawn       []int        `json:"-"` // the blocks re-derived, in the order drawn
 }
 
 // PassChance is the chance that the audit passes if Share of the blocks
@@ -552,4 +517,146 @@ func orEmpty[T any](s []T) []T {
 		return []T{}
 	}
 	return s
+}
+
+// reportOf puts a checker's result into a report: the header's fields as
+// far as it was read, what was re-derived, and the failure, if any.
+func reportOf(res *kernel.Result, file string) *Report {
+	v := Version()
+	r := &Report{File: file, Mode: res.Mode, Checker: &v}
+	if f := res.File; f != nil && f.Sieve != nil {
+		describeSieve(r, f.Sieve, f.Records)
+	} else if f != nil && f.Range != nil {
+		describeRange(r, f.Range, f.Records)
+	}
+	if f := res.File; f != nil && f.Shard != nil {
+		s := f.Shard
+		r.Kind += " shard"
+		r.Shard = &SpanReport{Index: s.Index, Of: s.Of, First: s.First, Count: s.Count}
+	}
+	if res.Root != nil {
+		r.Root = res.Root.String()
+	}
+	if s := res.Span; s != nil {
+		r.Span = &SpanReport{Index: s.Index, Of: s.Of, First: s.First, Count: s.Count}
+	}
+	if r.Mode == ModePart && res.File != nil {
+		r.BytesRead = res.File.BytesRead()
+	}
+	for _, n := range res.Undecided {
+		r.Undecided = append(r.Undecided, Num(n.String()))
+	}
+	if a := res.Audit; a != nil {
+		r.Audit = audit(a.Blocks, len(a.Drawn))
+		r.Audit.Seed, r.Audit.SeedFrom, r.Audit.Drawn = a.Seed, a.SeedFrom, a.Drawn
+	}
+	if res.Failure != nil {
+		return r.fail(res.Failure)
+	}
+	if r.Kind == "range" || r.Kind == "range shard" {
+		h := res.File.Range
+		r.Below = belowReport(check.FatesBelow(h.Map, h.Cap, h.Ceiling, h.Lo))
+	}
+	r.Valid = true
+	r.Partial = r.Span != nil || r.Audit != nil || r.Shard != nil
+	return r
+}
+
+func describeSieve(r *Report, h *kernel.SieveHeader, records int) {
+	r.Kind, r.Map, r.K, r.J, r.Cap, r.Chunks, r.Ceiling = "sieve", h.Map.String(), h.K, h.J, h.Cap, records, h.Ceiling
+	r.Survivors = numU(h.Survivors)
+	if h.Joins {
+		r.Joined, r.SieveSurvivors = numU(h.Joined), numU(h.Survivors)
+		r.Survivors = numU(h.Survivors - h.Joined)
+	}
+	r.ClosedAt = map[string]Num{}
+	for t, c := range h.ClosedAt {
+		if c != 0 {
+			r.ClosedAt[strconv.Itoa(t+1)] = numU(c)
+		}
+	}
+	r.Exceptions = []ExceptionReport{}
+	for _, e := range h.Exceptions {
+		r.Exceptions = append(r.Exceptions, exceptionReport(e))
+	}
+}
+
+func exceptionReport(e kernel.Fate) ExceptionReport {
+	x := ExceptionReport{N: Num(e.N.String()), Fate: [...]string{"", "descends", "cycle", "undecided"}[e.Kind], Steps: e.Steps}
+	if e.Kind == kernel.Cycle {
+		x.CycleMin = Num(e.CycleMin.String())
+	}
+	return x
+}
+
+func describeRange(r *Report, h *kernel.RangeHeader, records int) {
+	r.Kind, r.Map, r.K, r.Cap, r.Chunks, r.Ceiling = "range", h.Map.String(), h.K, h.Cap, records, h.Ceiling
+	r.SieveRoot, r.From, r.To, r.BlockExp = h.SieveRoot.String(), Num(h.Lo.String()), Num(h.Hi.String()), h.E
+	t := &h.Totals
+	n := func(i int) Num { return Num(t.Counts[i].String()) }
+	r.Counts = &RangeCounts{Sieve: n(kernel.CSieve), Join: n(kernel.CJoin), Search: n(kernel.CSearch), Small: n(kernel.CSmall),
+		Cycle: n(kernel.CCycle), Undecided: n(kernel.CUndecided), StoppingTimeSum: Num(t.Sum.String()), Rules: []RuleReport{}}
+	for i, x := range h.Rules {
+		rr := RuleReport{Class: fmt.Sprintf("%d*q+%d", x.M, x.C), Predecessor: fmt.Sprintf("%d*q+%d", x.Mp, x.Cp), Steps: x.Steps, Numbers: "0"}
+		if i < len(t.Rules) {
+			rr.Numbers = Num(t.Rules[i].String())
+		}
+		r.Counts.Rules = append(r.Counts.Rules, rr)
+	}
+	r.Records = []RecordReport{}
+	for _, p := range t.Records {
+		r.Records = append(r.Records, RecordReport{N: Num(p.N.String()), StoppingTime: p.Sigma})
+	}
+	if t.MaxAt != nil {
+		r.MaxStoppingTime = &RecordReport{N: Num(t.MaxAt.String()), StoppingTime: t.MaxSigma}
+	}
+	r.Cycles = []CycleReport{}
+	for _, c := range t.Cycles {
+		r.Cycles = append(r.Cycles, CycleReport{Min: Num(c.Min.String()), Count: Num(c.Count.String())})
+	}
+	r.Undecided = []Num{}
+}
+
+// audit states what a sample of n of m blocks shows: the chance that it
+// passes although a given share of the blocks is wrong, drawing without
+// replacement.
+func audit(m, n int) *Audit {
+	a := &Audit{Blocks: m, Audited: n}
+	for _, share := range []float64{0.001, 0.01, 0.1} {
+		wrong := int(share*float64(m) + 0.999999)
+		if k := len(a.PassIfWrong); k > 0 && a.PassIfWrong[k-1].WrongBlocks == wrong {
+			continue // the same number of blocks as the smaller share
+		}
+		p := 1.0
+		for i := 0; i < n; i++ {
+			if m-wrong-i <= 0 {
+				p = 0
+				break
+			}
+			p *= float64(m-wrong-i) / float64(m-i)
+		}
+		a.PassIfWrong = append(a.PassIfWrong, PassChance{Share: share, WrongBlocks: wrong, Pass: p})
+	}
+	return a
+}
+
+// belowReport is what the numbers below a range reach, nil if not derived.
+func belowReport(fates []kernel.Fate) *[]ExceptionReport {
+	if fates == nil {
+		return nil
+	}
+	out := []ExceptionReport{}
+	for _, e := range fates {
+		out = append(out, exceptionReport(e))
+	}
+	return &out
+}
+
+// SpanReport says which records a partial check re-derived, numbered as
+// in the whole.
+type SpanReport struct {
+	Index int `json:"index"`
+	Of    int `json:"of"`
+	First int `json:"first"`
+	Count int `json:"count"`
 }

@@ -1,0 +1,281 @@
+package kernel
+
+import (
+	"encoding/binary"
+	"encoding/hex"
+	"fmt"
+	"io"
+	"sync/atomic"
+
+	"golang.org/x/crypto/blake2b"
+)
+
+// The container (SPEC.md, section 2) read at offsets, with the Merkle tree
+// of its header and records.
+
+// Caps of the format (SPEC.md, section 4): each bounds a loop or an
+// allocation that the input steers.
+const (
+	preambleLen  = 18
+	maxBody      = 1 << 20
+	maxRecords   = 1 << 24
+	maxRecordLen = 1 << 30
+)
+
+// Hash is a BLAKE2b-256 hash: a leaf, an inner node or a root.
+type Hash [32]byte
+
+func (h Hash) String() string { return hex.EncodeToString(h[:]) }
+
+func (h Hash) short() string { return hex.EncodeToString(h[:8]) + "…" }
+
+// ParseHash reads a hash in hex, as roots are published.
+func ParseHash(s string) (Hash, error) {
+	var h Hash
+	b, err := hex.DecodeString(s)
+	if err != nil || len(b) != len(h) {
+		return h, fmt.Errorf("root %q: want %d hex digits", s, 2*len(h))
+	}
+	copy(h[:], b)
+	return h, nil
+}
+
+// LeafHash and nodeHash have different first bytes, so that no record can
+// pass for an inner node (SPEC.md, "Hashes").
+func LeafHash(b []byte) Hash {
+	d, _ := blake2b.New256(nil)
+	d.Write([]byte{0})
+	d.Write(b)
+	var h Hash
+	d.Sum(h[:0])
+	return h
+}
+
+func nodeHash(l, r Hash) Hash { return blake2b.Sum256(append(append([]byte{1}, l[:]...), r[:]...)) }
+
+// levelSizes are the sizes of the tree's levels over n leaves: each level
+// pairs the one below from the left, an unpaired last hash moving up.
+func levelSizes(n int) []int {
+	sizes := []int{n}
+	for n > 1 {
+		n = (n + 1) / 2
+		sizes = append(sizes, n)
+	}
+	return sizes
+}
+
+// File is a certificate opened for reading at offsets: its header, and,
+// once read, its stored tree and record offsets.
+type File struct {
+	Kind    byte // 's', 'j', 'r' or 'h'
+	Records int
+	Header  []byte       // preamble and body: leaf 0
+	Sieve   *SieveHeader // a sieve, or the whole of a sieve shard
+	Range   *RangeHeader // a range, or the whole of a range shard
+	Shard   *ShardHeader
+	Tree    [][]Hash // the stored tree, level 0 first
+	Offsets []int64
+	read    atomic.Int64 // the bytes read so far
+	src     io.ReaderAt
+	size    int64
+}
+
+// readAt reads n bytes at off. It allocates only once they are known to
+// lie in the file, so that no length the input states is allocated ahead
+// of the bytes.
+func (f *File) readAt(off, n int64, what string) ([]byte, *Failure) {
+	if off < 0 || n < 0 || off > f.size || n > f.size-off {
+		off = min(max(off, 0), f.size)
+		return nil, malformed(f.size, "file ends inside the %s (%d of %d bytes)", what, f.size-off, n)
+	}
+	b := make([]byte, n)
+	got, err := f.src.ReadAt(b, off)
+	f.read.Add(int64(got))
+	if got < len(b) {
+		return nil, malformed(off+int64(got), "read: %v", err)
+	}
+	return b, nil
+}
+
+// open reads the preamble and the header (SPEC.md, section 3, steps 1
+// and 2).
+func open(r io.ReaderAt, size int64) (*File, *Failure) {
+	f := &File{src: r, size: size}
+	pre, fl := f.readAt(0, preambleLen, "preamble")
+	if fl != nil {
+		return f, fl
+	}
+	switch {
+	case string(pre[:8]) != magic:
+		return f, malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
+	case pre[8] != version:
+		return f, versionFailure(pre[8])
+	case pre[9] != kindSieve && pre[9] != kindJoins && pre[9] != kindRange && pre[9] != kindShard:
+		return f, malformed(9, "unknown certificate kind %q", pre[9])
+	}
+	records, bodyLen := binary.BigEndian.Uint32(pre[10:]), binary.BigEndian.Uint32(pre[14:])
+	if records < 1 || records > maxRecords {
+		return f, malformed(10, "the preamble declares %d records; the format allows 1 to %d", records, maxRecords)
+	}
+	if bodyLen > maxBody {
+		return f, malformed(14, "header body of %d bytes is over the cap of %d", bodyLen, maxBody)
+	}
+	body, fl := f.readAt(preambleLen, int64(bodyLen), "header")
+	if fl != nil {
+		return f, fl
+	}
+	f.Kind, f.Records, f.Header = pre[9], int(records), append(pre, body...)
+	switch f.Kind {
+	case kindShard:
+		if f.Shard, fl = parseShardHeader(body, f.Records); fl == nil {
+			f.Sieve, f.Range = f.Shard.sieve, f.Shard.rng
+		}
+	case kindRange:
+		f.Range, fl = parseRangeHeader(body, f.Records)
+	default:
+		if f.Sieve, fl = parseSieveHeader(body, f.Kind == kindJoins); fl == nil {
+			fl = f.Sieve.sane(f.Records)
+		}
+	}
+	return f, fl
+}
+
+// treeLen is the bytes of the stored tree.
+func (f *File) treeLen() int64 {
+	n := int64(0)
+	for _, s := range levelSizes(f.Records + 1) {
+		n += int64(s) * 32
+	}
+	return n
+}
+
+// readIndex reads the stored tree and the offsets (step 3).
+func (f *File) readIndex() *Failure {
+	off := int64(len(f.Header))
+	for level, size := range levelSizes(f.Records + 1) {
+		b, fl := f.readAt(off, int64(size)*32, fmt.Sprintf("stored tree, level %d", level))
+		if fl != nil {
+			return fl
+		}
+		off += int64(len(b))
+		hs := make([]Hash, size)
+		for i := range hs {
+			copy(hs[i][:], b[32*i:])
+		}
+		f.Tree = append(f.Tree, hs)
+	}
+	b, fl := f.readAt(off, 8*int64(f.Records+1), "record offsets")
+	if fl != nil {
+		return fl
+	}
+	start := off + int64(len(b))
+	for i := 0; i <= f.Records; i++ {
+		o, at := int64(binary.BigEndian.Uint64(b[8*i:])), off+8*int64(i)
+		if i == 0 && o != start {
+			return malformed(at, "the first record is said to start at %d; it starts at %d", o, start)
+		}
+		if i > 0 && (o <= f.Offsets[i-1] || o-f.Offsets[i-1] > maxRecordLen) {
+			return malformed(at, "record %d would span offsets %d to %d", i-1, f.Offsets[i-1], o)
+		}
+		f.Offsets = append(f.Offsets, o)
+	}
+	return nil
+}
+
+// verify checks the hashes of the header and of the stored tree (step 4).
+func (f *File) verify() *Failure {
+	if got := LeafHash(f.Header); got != f.Tree[0][0] {
+		return invalid(ReasonHash, Where{Offset: new(int64)}, "the header hashes to %s; the stored tree says %s", got.short(), f.Tree[0][0].short())
+	}
+	for l := 1; l < len(f.Tree); l++ {
+		below := f.Tree[l-1]
+		for i, stored := range f.Tree[l] {
+			want := below[2*i]
+			if 2*i+1 < len(below) {
+				want = nodeHash(below[2*i], below[2*i+1])
+			}
+			if stored != want {
+				return invalid(ReasonTree, Where{}, "stored tree level %d, hash %d is %s; its children give %s", l, i, stored.short(), want.short())
+			}
+		}
+	}
+	return nil
+}
+
+// base is the whole's index of the file's first record.
+func (f *File) base() int {
+	if f.Shard != nil {
+		return f.Shard.First
+	}
+	return 0
+}
+
+// BytesRead is the number of bytes read from the file so far.
+func (f *File) BytesRead() int64 { return f.read.Load() }
+
+// Root is the stored root.
+func (f *File) Root() Hash { return f.Tree[len(f.Tree)-1][0] }
+
+// record reads record i and compares its hash with leaf i+1 (step 7).
+func (f *File) record(i int) ([]byte, *Failure) {
+	rec, fl := f.readAt(f.Offsets[i], f.Offsets[i+1]-f.Offsets[i], fmt.Sprintf("record %d", i))
+	if fl != nil {
+		return nil, fl
+	}
+	if got, want := LeafHash(rec), f.Tree[0][i+1]; got != want && f.Range != nil {
+		return nil, invalid(ReasonHash, Where{Chunk: chunkAt(i), Offset: &f.Offsets[i]}, "block %d hashes to %s; the stored tree says %s", i, got.short(), want.short())
+	} else if got != want {
+		return nil, invalid(ReasonHash, Where{Chunk: chunkAt(i), Offset: &f.Offsets[i], Expected: want.short(), Found: got.short()},
+			"the chunk hashes to %s; the stored tree says %s", got.short(), want.short())
+	}
+	return rec, nil
+}
+
+// end checks that no byte follows the last record (step 8).
+func (f *File) end() *Failure {
+	if last := f.Offsets[f.Records]; last < f.size {
+		return malformed(last, "bytes follow the last record")
+	}
+	return nil
+}
+
+// proves says whether leaf i, hashed up its audit path (one stored
+// sibling per level where one exists), leads to root. It reads only
+// those siblings (SPEC.md, section 7).
+func (f *File) proves(leaf Hash, i int, root Hash) (bool, *Failure) {
+	at := int64(len(f.Header))
+	sizes := levelSizes(f.Records + 1)
+	for l := 0; l+1 < len(sizes); l++ {
+		if sib := i ^ 1; sib < sizes[l] {
+			b, fl := f.readAt(at+32*int64(sib), 32, "stored tree")
+			if fl != nil {
+				return false, fl
+			}
+			if s := Hash(b); i&1 == 0 {
+				leaf = nodeHash(leaf, s)
+			} else {
+				leaf = nodeHash(s, leaf)
+			}
+		}
+		at += 32 * int64(sizes[l])
+		i /= 2
+	}
+	return leaf == root, nil
+}
+
+// AuditDraw draws n distinct blocks of m (SPEC.md, section 6, "Audits"):
+// with key = BLAKE2b-256("descent audit" 00 || root || seed), the c-th
+// candidate is the first 8 bytes of BLAKE2b-256(key || c), big-endian,
+// mod m, for c = 0, 1, 2, ...; repeats are skipped.
+func AuditDraw(root Hash, seed string, m, n int) []int {
+	key := blake2b.Sum256(append(append([]byte("descent audit\x00"), root[:]...), seed...))
+	seen := map[int]bool{}
+	var out []int
+	for c := uint64(0); len(out) < min(n, m); c++ {
+		h := blake2b.Sum256(binary.BigEndian.AppendUint64(key[:], c))
+		if i := int(binary.BigEndian.Uint64(h[:8]) % uint64(m)); !seen[i] {
+			seen[i], out = true, append(out, i)
+		}
+	}
+	return out
+}
