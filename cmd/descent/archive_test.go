@@ -105,24 +105,6 @@ func TestArchiveDamageAndLossThroughTheCLI(t *testing.T) {
 // can be told (DESCENT_ARCHIVE_PAUSE) to stop at a named point.
 func buildKillable(t *testing.T) string { return buildBinary(t, "archivekill") }
 
-// lockedBuffer collects a child's stderr while the test polls it.
-type lockedBuffer struct {
-	ch  chan struct{}
-	buf bytes.Buffer
-}
-
-func (b *lockedBuffer) Write(p []byte) (int, error) {
-	b.ch <- struct{}{}
-	defer func() { <-b.ch }()
-	return b.buf.Write(p)
-}
-
-func (b *lockedBuffer) String() string {
-	b.ch <- struct{}{}
-	defer func() { <-b.ch }()
-	return b.buf.String()
-}
-
 // waitFor polls until cond holds or the process ends; it fails the test
 // if the process ended first.
 func waitFor(t *testing.T, cmd *exec.Cmd, done <-chan error, what string, cond func() bool) {
@@ -196,7 +178,7 @@ func TestArchiveKilledAdd(t *testing.T) {
 			}
 			cmd := exec.Command(bin, "archive", "add", dir, sieve, second)
 			cmd.Env = env
-			stderr := &lockedBuffer{ch: make(chan struct{}, 1)}
+			stderr := &lockedBuffer{}
 			cmd.Stderr = stderr
 			require.NoError(t, cmd.Start())
 			done := make(chan error, 1)
@@ -261,7 +243,7 @@ func TestArchiveWaitsForTheLock(t *testing.T) {
 	dir := filepath.Join(t.TempDir(), "arch")
 	cmd := exec.Command(bin, "archive", "add", dir, tdSieve12)
 	cmd.Env = append(os.Environ(), "DESCENT_ARCHIVE_PAUSE=checked")
-	stderr := &lockedBuffer{ch: make(chan struct{}, 1)}
+	stderr := &lockedBuffer{}
 	cmd.Stderr = stderr
 	require.NoError(t, cmd.Start())
 	done := make(chan error, 1)
@@ -269,7 +251,7 @@ func TestArchiveWaitsForTheLock(t *testing.T) {
 	waitFor(t, cmd, done, "it paused", func() bool { return strings.Contains(stderr.String(), "paused at checked") })
 
 	second := exec.Command(bin, "archive", "find", dir)
-	second2 := &lockedBuffer{ch: make(chan struct{}, 1)}
+	second2 := &lockedBuffer{}
 	second.Stderr = second2
 	require.NoError(t, second.Start())
 	secondDone := make(chan error, 1)

@@ -147,9 +147,29 @@ func TestHugeClaimsFailFastInLittleMemory(t *testing.T) {
 // started is a descent process running in the background.
 type started struct {
 	cmd            *exec.Cmd
-	stdout, stderr bytes.Buffer
+	stdout, stderr lockedBuffer
 	done           chan struct{}
 	err            error
+}
+
+// lockedBuffer is a bytes.Buffer that the goroutine copying a process's
+// output and the test may use at once: a failure message reads it while
+// the process still writes.
+type lockedBuffer struct {
+	mu  sync.Mutex
+	buf bytes.Buffer
+}
+
+func (b *lockedBuffer) Write(p []byte) (int, error) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.buf.Write(p)
+}
+
+func (b *lockedBuffer) String() string {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.buf.String()
 }
 
 func start(t *testing.T, bin string, args ...string) *started {
