@@ -249,6 +249,9 @@ func (c *cli) printReport(rep *Report) {
 	}
 	fmt.Fprintf(w, "%s: %s (%s): %v\n", rep.File, verdict, rep.Reason, rep.Err())
 	if wh := rep.Where; wh != nil && (wh.Expected != "" || wh.Found != "") {
-		fmt.Fprintf(w, "  claim      %s\n  expected   %s\n  found      %s\n", wh.Claim, wh.Expected, wh.Found)
+		if wh.Claim != "" { // a root that differs is no claim of the file
+			fmt.Fprintf(w, "  claim      %s\n", wh.Claim)
+		}
+		fmt.Fprintf(w, "  expected   %s\n  found      %s\n", wh.Expected, wh.Found)
 	}
 }

@@ -2,6 +2,7 @@ package main
 
 import (
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -38,4 +39,16 @@ func TestReadersMistakesExitTwo(t *testing.T) {
 	require.Equal(t, exitUsage, code)
 	require.Contains(t, stdout, `"reason":"sieve-missing"`)
 	require.Contains(t, stdout, `"hint":"give that sieve certificate with -sieve FILE"`)
+}
+
+// A -root that the file does not have is the one failure with no claim of
+// the file behind it: the report names the two roots and prints no empty
+// claim line.
+func TestAnotherRootPrintsBothRootsAndNoClaim(t *testing.T) {
+	path := filepath.Join("..", "..", "testdata", "sieve-3n+1-k4.dcert")
+	want := strings.Repeat("0", 64)
+	code, stdout, _ := runCLI("check", "-root", want, path)
+	require.Equal(t, exitInvalid, code, stdout)
+	require.Contains(t, stdout, "\n  expected   "+want+"\n  found      ")
+	require.NotContains(t, stdout, "claim")
 }
