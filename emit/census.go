@@ -169,7 +169,7 @@ func Census(ctx context.Context, w io.WriterAt, p CensusParams, o CensusOptions)
 		r.upto = r.from + count
 	}
 	if len(o.Done) > r.upto-r.from {
-		return nil, fmt.Errorf("emit: %d completed blocks for a run of %d", len(o.Done), r.upto-r.from)
+		return nil, fmt.Errorf("%d completed blocks for a run of %d", len(o.Done), r.upto-r.from)
 	}
 	for i, rec := range o.Done {
 		b, err := cert.ParseCensusBlock(rec, 0)
@@ -177,7 +177,7 @@ func Census(ctx context.Context, w io.WriterAt, p CensusParams, o CensusOptions)
 			err = censusHeader(p, total, cert.CensusSummary{}).CheckCensusBlockSpan(b, r.from+i, 0)
 		}
 		if err != nil {
-			return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged or of another run: %v", r.from+i, err)
+			return nil, fmt.Errorf("completed block %d from an earlier run is damaged or of another run: %v", r.from+i, err)
 		}
 		r.keep(r.from+i, rec, b)
 	}
@@ -347,7 +347,7 @@ func (r *censusRun) compute(ctx context.Context) error {
 		}
 	}
 	if r.next != len(r.blocks) {
-		return fmt.Errorf("emit: census: %d of %d blocks finished", r.next, len(r.blocks))
+		return fmt.Errorf("census: %d of %d blocks finished", r.next, len(r.blocks))
 	}
 	return c.work.failed()
 }

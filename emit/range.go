@@ -184,7 +184,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		upto = from + count
 	}
 	if len(o.Done) > upto-from {
-		return nil, fmt.Errorf("emit: %d completed blocks for a run of %d", len(o.Done), upto-from)
+		return nil, fmt.Errorf("%d completed blocks for a run of %d", len(o.Done), upto-from)
 	}
 	workers := o.Workers
 	if workers <= 0 {
@@ -198,7 +198,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 		var b *cert.Block
 		if i-from < len(o.Done) {
 			if b, err = cert.ParseBlock(o.Done[i-from], 0, len(p.Rules)); err != nil || b.Index != uint32(i) {
-				return nil, fmt.Errorf("emit: completed block %d from an earlier run is damaged or of another run: %v", i, err)
+				return nil, fmt.Errorf("completed block %d from an earlier run is damaged or of another run: %v", i, err)
 			}
 			recs = append(recs, o.Done[i-from])
 		} else {

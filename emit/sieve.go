@@ -202,12 +202,12 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 					e.node(d, st.s, st.v)
 				}
 				if e.w.Len() >= 1<<32 || e.w.Len()/8 > cert.MaxRecordBytes-64 {
-					return fmt.Errorf("emit: the chunk below class %d mod 2^%d has %d code bits, more than a record holds", st.res, d, e.w.Len())
+					return fmt.Errorf("the chunk below class %d mod 2^%d has %d code bits, more than a record holds", st.res, d, e.w.Len())
 				}
 				rec := cert.Chunk{Residue: st.res, From: d, To: r.j, NBits: e.w.Len(), Payload: e.w.Bytes()}.Marshal()
 				if jw != nil {
 					if e.tally.open > cert.MaxJoinSurvivors {
-						return fmt.Errorf("emit: the chunk below class %d mod 2^%d has %d survivors, more than a chunk with joins may hold (%d)", st.res, d, e.tally.open, cert.MaxJoinSurvivors)
+						return fmt.Errorf("the chunk below class %d mod 2^%d has %d survivors, more than a chunk with joins may hold (%d)", st.res, d, e.tally.open, cert.MaxJoinSurvivors)
 					}
 					rec = jw.AppendTo(rec)
 					e.tally.joined = jw.Joined()
@@ -236,7 +236,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 			}
 		}
 		if done != stubs {
-			return fmt.Errorf("emit: internal error: the walk found %d classes open at depth %d, the count says %d", done, d, stubs)
+			return fmt.Errorf("internal error: the walk found %d classes open at depth %d, the count says %d", done, d, stubs)
 		}
 		return nil
 	})
@@ -303,11 +303,11 @@ func (r *rules) header(cap uint32) (*cert.SieveHeader, error) {
 // agree compares what the walk wrote with the header written before it.
 func (r *rules) agree(h *cert.SieveHeader, got tally) error {
 	if got.open<<(r.k-r.j) != h.Survivors {
-		return fmt.Errorf("emit: internal error: the walk wrote %d survivors mod 2^%d, the count says %d", got.open<<(r.k-r.j), r.j, h.Survivors)
+		return fmt.Errorf("internal error: the walk wrote %d survivors mod 2^%d, the count says %d", got.open<<(r.k-r.j), r.j, h.Survivors)
 	}
 	for t := 1; t <= r.j; t++ {
 		if got.closed[t] != h.ClosedAt[t-1] {
-			return fmt.Errorf("emit: internal error: the walk closed %d classes at step %d, the count says %d", got.closed[t], t, h.ClosedAt[t-1])
+			return fmt.Errorf("internal error: the walk closed %d classes at step %d, the count says %d", got.closed[t], t, h.ClosedAt[t-1])
 		}
 	}
 	return nil
