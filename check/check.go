@@ -7,7 +7,9 @@
 //   - (a) a table the kernel validates entry by entry before use, so that a
 //     bug in it costs speed, never soundness: the sieve memo over
 //     (s, v mod 2^8) (memo.go), whose entries the kernel walks class by
-//     class and keeps only if true;
+//     class and keeps only if true; and the range search's table of
+//     jumpBits steps at once (jump.go), each entry re-derived by
+//     kernel.Params.ValidJump before use;
 //   - (b) code that cannot be validated that way, fuzzed against the kernel
 //     for the same verdict, reason and derived values: the parallel
 //     pipeline of chunk records (pipeline.go, FuzzPipelineAgainstKernel)

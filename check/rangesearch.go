@@ -59,11 +59,14 @@ type searcher struct {
 	k, d  int
 	a, b  *big.Int
 	pow   []*big.Int // a^s exactly
+	pow64 []uint64   // a^s for the s with a^s < 2^64
 	stubs []kernel.Stub
 	limHi uint64 // below it (high word of x) a step stays within 128 bits
 	half  uint64 // (a-1)/2
 	inc   int64  // (b+1)/2
 	joins bool   // the sieve has joins
+	jump  []jumpEntry
+	limJ  uint64 // below it (high word of x) a jump and its steps stay within 128 bits
 }
 
 // newSearcher sets up the search of the blocks of r.
@@ -74,11 +77,15 @@ func newSearcher(r *kernel.Range) *searcher {
 	p := big.NewInt(1)
 	for i := 0; i <= h.K; i++ {
 		s.pow = append(s.pow, new(big.Int).Set(p))
+		if p.IsUint64() && len(s.pow64) == i {
+			s.pow64 = append(s.pow64, p.Uint64())
+		}
 		p.Mul(p, s.a)
 	}
 	// The classes open at depth d, in trie order; the sieve, checked by
 	// now, has a record for each.
 	s.stubs = r.P.Stubs(1 << 24)
+	s.jump, s.limJ = jumpTable(r.P)
 	return s
 }
 
@@ -116,7 +123,15 @@ func (s *searcher) oddStep(x wide) wide {
 	return wide{hi: x.hi>>1 + mh + c, lo: lo}
 }
 
+// plus is x + a^odd, in 128 bits while both fit (the walk of the trie
+// calls it at every node), by math/big otherwise.
 func (s *searcher) plus(x wide, odd int) wide {
+	if x.big == nil && odd < len(s.pow64) {
+		lo, c := bits.Add64(x.lo, s.pow64[odd], 0)
+		if hi, c2 := bits.Add64(x.hi, 0, c); c2 == 0 {
+			return wide{hi: hi, lo: lo}
+		}
+	}
 	return fromBig(new(big.Int).Add(x.toBig(), s.pow[odd]))
 }
 
@@ -158,10 +173,23 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 // drop steps x = T^i(n) on in 128 bits until it is below n, for numbers n
 // below 2^64. It gives up (false) at the cap or when a step could leave 128
 // bits, and the caller takes the general path from the start.
+//
+// Where x >= n*2^shift for the table entry of x's low bits, no iterate of
+// the next jumpBits steps is below n, and it takes them at once.
 func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 	for ; i <= s.h.Cap; i++ {
 		if hi == 0 && lo < n {
 			return i, true
+		}
+		if s.jump != nil && hi < s.limJ && s.h.Cap-i >= jumpBits {
+			if e := &s.jump[lo&(1<<jumpBits-1)]; e.ok && atLeast(hi, lo, e.shift, n) {
+				qhi, qlo := hi>>jumpBits, lo>>jumpBits|hi<<(64-jumpBits)
+				h, l := bits.Mul64(qlo, e.mult)
+				l, c := bits.Add64(l, e.v, 0)
+				hi, lo = h+qhi*e.mult+c, l
+				i += jumpBits - 1
+				continue
+			}
 		}
 		if lo&1 == 0 {
 			hi, lo = hi>>1, lo>>1|hi<<63
@@ -181,11 +209,12 @@ func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 type tallies struct {
 	counts   [6]uint64
 	rules    []uint64 // numbers justified by each predecessor rule
-	sum      *big.Int
+	sumHi    uint64   // the sum of the stopping times, in 128 bits: a block
+	sumLo    uint64   // holds at most 2^96 numbers, each below 2^32 steps
 	maxSigma uint32
 	maxAt    uint64
 	points   []offPoint // the records among the numbers searched, increasing
-	firstAt  map[int]uint64
+	firstAt  []uint64   // by stopping time: the first offset that the sieve justifies with it, or none
 	cycles   map[string]*kernel.CycleCount
 	undec    []uint64
 }
@@ -195,13 +224,28 @@ type offPoint struct {
 	sigma uint32
 }
 
-func newTallies(rules int) *tallies {
-	return &tallies{sum: new(big.Int), firstAt: map[int]uint64{}, cycles: map[string]*kernel.CycleCount{}, rules: make([]uint64, rules)}
+// none marks a stopping time with no first offset yet.
+const none = ^uint64(0)
+
+func newTallies(rules, k int) *tallies {
+	t := &tallies{firstAt: make([]uint64, k+1), cycles: map[string]*kernel.CycleCount{}, rules: make([]uint64, rules)}
+	for i := range t.firstAt {
+		t.firstAt[i] = none
+	}
+	return t
+}
+
+// add adds n numbers of stopping time sigma to the sum.
+func (t *tallies) add(n uint64, sigma uint32) {
+	hi, lo := bits.Mul64(n, uint64(sigma))
+	var c uint64
+	t.sumLo, c = bits.Add64(t.sumLo, lo, 0)
+	t.sumHi += hi + c
 }
 
 func (t *tallies) drop(off uint64, sigma uint32, rule int) {
 	t.counts[rule]++
-	t.sum.Add(t.sum, big.NewInt(int64(sigma)))
+	t.add(1, sigma)
 	if sigma > t.maxSigma || (sigma == t.maxSigma && off < t.maxAt) {
 		t.maxSigma, t.maxAt = sigma, off
 	}
@@ -289,10 +333,8 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 			cls := res | c<<t
 			if n, first := p.inClass(cls, t+1); n > 0 {
 				p.t.counts[kernel.CSieve] += n
-				p.t.sum.Add(p.t.sum, new(big.Int).Mul(new(big.Int).SetUint64(n), big.NewInt(int64(t+1))))
-				if f, ok := p.t.firstAt[t+1]; !ok || first < f {
-					p.t.firstAt[t+1] = first
-				}
+				p.t.add(n, uint32(t+1))
+				p.t.firstAt[t+1] = min(p.t.firstAt[t+1], first)
 			}
 			continue
 		}
@@ -317,8 +359,8 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		p.t.counts[kernel.CJoin] += n
 		return
 	}
-	if p.fast && tk.big == nil && s.pow[odd].BitLen() <= 64 {
-		m := s.pow[odd].Uint64()
+	if p.fast && tk.big == nil && odd < len(s.pow64) {
+		m := s.pow64[odd]
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
 			if r := s.ruleFor(num); r >= 0 {
@@ -370,13 +412,13 @@ func (s *searcher) derive(i int, workers int) *kernel.Block {
 	}
 
 	stop := new(atomic.Bool)
-	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.Rules)), stop: stop}}
+	parts := []*part{{s: s, x0: x0, from: from, to: split, t: newTallies(len(h.Rules), h.K), stop: stop}}
 	small := parts[0]
 	for off := small.from; off < small.to && small.t.counts[kernel.CUndecided] <= kernel.MaxList && !s.m.Exceeded(); off++ {
 		n := new(big.Int).Add(x0, new(big.Int).SetUint64(off))
 		small.t.note(off, s.decide(n, fromBig(n), 0), kernel.CSmall)
 	}
-	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules)), stop: stop}
+	top := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules), h.K), stop: stop}
 	parts = append(parts, top)
 	top.classes(0, 0, wide{}, 0, s.d)
 	var wg sync.WaitGroup
@@ -385,7 +427,7 @@ func (s *searcher) derive(i int, workers int) *kernel.Block {
 	fast := end.BitLen() <= 64
 	for _, st := range s.stubs {
 		res := st.Res
-		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules)), fast: fast, stop: stop}
+		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules), h.K), fast: fast, stop: stop}
 		if fast {
 			p.x0u = x0.Uint64()
 		}
@@ -418,7 +460,7 @@ func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
 	var maxAt uint64
 	cycles := map[string]*kernel.CycleCount{}
 	var undec []uint64
-	firstAt := map[int]uint64{}
+	var firstAt []uint64
 	for _, p := range parts {
 		t := p.t
 		for i, c := range t.counts {
@@ -430,12 +472,14 @@ func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
 		for i, c := range t.rules {
 			rules[i] += c
 		}
-		total.Add(total, t.sum)
+		sum := new(big.Int).SetUint64(t.sumHi)
+		total.Add(total, sum.Lsh(sum, 64).Add(sum, new(big.Int).SetUint64(t.sumLo)))
 		pts = append(pts, t.points...)
+		if firstAt == nil {
+			firstAt = t.firstAt
+		}
 		for step, off := range t.firstAt {
-			if f, ok := firstAt[step]; !ok || off < f {
-				firstAt[step] = off
-			}
+			firstAt[step] = min(firstAt[step], off)
 		}
 		if t.maxSigma > maxSigma || (t.maxSigma == maxSigma && t.maxSigma > 0 && t.maxAt < maxAt) {
 			maxSigma, maxAt = t.maxSigma, t.maxAt
@@ -450,6 +494,9 @@ func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
 		undec = append(undec, t.undec...)
 	}
 	for step, off := range firstAt {
+		if off == none {
+			continue
+		}
 		sigma := uint32(step)
 		pts = append(pts, offPoint{off, sigma})
 		if sigma > maxSigma || (sigma == maxSigma && off < maxAt) {

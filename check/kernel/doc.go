@@ -20,6 +20,8 @@
 //	            bound, predecessor rules (sections 1, 4, 6, 9)
 //	range.go    the sieve a range rests on, its blocks derived number by
 //	            number, their totals and comparison (section 6)
+//	jump.go     entries of a range search's table of several steps at
+//	            once, re-derived step by step (section 1)
 //	check.go    the order of a check: whole, share, shard, part; the sieve
 //	            of a range (sections 3, 7)
 package kernel
