@@ -191,15 +191,26 @@ func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
 				continue
 			}
 		}
-		if lo&1 == 0 {
-			hi, lo = hi>>1, lo>>1|hi<<63
-			continue
-		}
 		if hi >= s.limHi {
 			return 0, false
 		}
-		x := s.oddStep(wide{hi: hi, lo: lo})
-		hi, lo = x.hi, x.lo
+		if s.inc < 0 {
+			if lo&1 == 0 {
+				hi, lo = hi>>1, lo>>1|hi<<63
+			} else {
+				x := s.oddStep(wide{hi: hi, lo: lo})
+				hi, lo = x.hi, x.lo
+			}
+			continue
+		}
+		// x>>1, plus x*(a-1)/2 + (b+1)/2 where x is odd (oddStep), without a
+		// branch on the parity, which no predictor can guess.
+		mask := -(lo & 1)
+		mh, ml := bits.Mul64(lo, s.half)
+		ml, c := bits.Add64(ml, uint64(s.inc), 0)
+		mh += hi*s.half + c
+		lo, c = bits.Add64(lo>>1|hi<<63, ml&mask, 0)
+		hi = hi>>1 + mh&mask + c
 	}
 	return 0, false
 }
