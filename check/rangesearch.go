@@ -176,12 +176,17 @@ func (s *searcher) decide(n *big.Int, x wide, i uint32) outcome {
 //
 // Where x >= n*2^shift for the table entry of x's low bits, no iterate of
 // the next jumpBits steps is below n, and it takes them at once.
+//
+// A jump refused (x too near n) is tried again only 4 steps later: near
+// the drop, where it is refused, the attempt costs more than the step.
 func (s *searcher) drop(n, hi, lo uint64, i uint32) (uint32, bool) {
+	retry := i
 	for ; i <= s.h.Cap; i++ {
 		if hi == 0 && lo < n {
 			return i, true
 		}
-		if s.jump != nil && hi < s.limJ && s.h.Cap-i >= jumpBits {
+		if i >= retry && s.jump != nil && hi < s.limJ && s.h.Cap-i >= jumpBits {
+			retry = i + 4
 			if e := &s.jump[lo&(1<<jumpBits-1)]; e.ok && atLeast(hi, lo, e.shift, n) {
 				qhi, qlo := hi>>jumpBits, lo>>jumpBits|hi<<(64-jumpBits)
 				h, l := bits.Mul64(qlo, e.mult)
@@ -267,6 +272,9 @@ func (t *tallies) drop(off uint64, sigma uint32, rule int) {
 // points seen: a point stays unless one before it has a stopping time at
 // least as large.
 func (t *tallies) stair(p offPoint) {
+	if len(t.points) > 0 && t.points[0].off <= p.off && t.points[0].sigma >= p.sigma {
+		return // the first record already outdoes it: the common case, without a search
+	}
 	i := sort.Search(len(t.points), func(i int) bool { return t.points[i].off >= p.off })
 	if i > 0 && t.points[i-1].sigma >= p.sigma {
 		return
@@ -307,7 +315,23 @@ type part struct {
 	fast     bool
 	from, to uint64
 	t        *tallies
-	surv     int // survivors visited so far, in the order of the codes
+	// The steps of the fast search are charged to the block's meter in
+	// batches: a meter shared by the workers and charged at every number
+	// would keep its cache line moving between the cores.
+	owed    int64
+	stopped bool
+}
+
+// settle charges the steps owed to the meter and says whether to go on:
+// not once the meter is spent, another part stopped, or the block has
+// more undecided numbers than a record lists.
+func (p *part) settle() {
+	p.s.m.Charge(p.owed)
+	p.owed = 0
+	if p.t.counts[kernel.CUndecided] > kernel.MaxList || p.s.m.Exceeded() {
+		p.stop.Store(true)
+	}
+	p.stopped = p.stop.Load()
 }
 
 // inClass returns how many offsets of [from, to) are congruent to res mod
@@ -358,10 +382,10 @@ func (p *part) classes(t, odd int, v wide, res uint64, end int) {
 // T^k(n) = a^s*q + T^k(res).
 func (p *part) survivor(res uint64, odd int, tk wide) {
 	s := p.s
-	if p.t.counts[kernel.CUndecided] > kernel.MaxList || s.m.Exceeded() {
-		p.stop.Store(true)
+	if p.owed >= 1<<16 {
+		p.settle()
 	}
-	if p.stop.Load() {
+	if p.stopped {
 		return
 	}
 	n, off := p.inClass(res, s.k)
@@ -385,7 +409,7 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 			h, c2 := bits.Add64(h, tk.hi, c)
 			if c2 == 0 {
 				if sigma, ok := s.drop(num, h, l, uint32(s.k)); ok {
-					s.m.Charge(int64(sigma) - int64(s.k))
+					p.owed += int64(sigma) - int64(s.k)
 					p.t.note(off, outcome{fate: 1, sigma: sigma}, kernel.CSearch)
 					continue
 				}
@@ -394,6 +418,9 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 			x := new(big.Int).Rsh(nb, uint(s.k))
 			x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
 			p.t.note(off, s.decide(nb, fromBig(x), uint32(s.k)), kernel.CSearch)
+			if p.settle(); p.stopped {
+				return
+			}
 		}
 		return
 	}
@@ -406,6 +433,9 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		x := new(big.Int).Rsh(num, uint(s.k))
 		x.Mul(x, s.pow[odd]).Add(x, tk.toBig())
 		p.t.note(off, s.decide(num, fromBig(x), uint32(s.k)), kernel.CSearch)
+		if p.settle(); p.stopped {
+			return
+		}
 	}
 }
 
@@ -453,6 +483,7 @@ func (s *searcher) derive(i int, workers int) *kernel.Block {
 				v = s.next(v)
 			}
 			p.classes(s.d, odd, v, res, s.k)
+			p.settle()
 		}()
 	}
 	wg.Wait()
