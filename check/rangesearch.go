@@ -396,9 +396,10 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 	}
 	if p.fast && tk.big == nil && odd < len(s.pow64) {
 		m := s.pow64[odd]
+		rules := s.ruleWalk(p.x0u + off)
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
-			if r := s.ruleFor(num); r >= 0 {
+			if r := rules.next(num); r >= 0 {
 				p.t.rules[r]++
 				continue
 			}
@@ -580,14 +581,36 @@ func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
 	return b
 }
 
-// ruleFor returns the first rule that covers n < 2^64, or -1.
-func (s *searcher) ruleFor(n uint64) int {
-	for i, r := range s.h.Rules {
-		if n >= r.C && (n-r.C)%r.M == 0 {
-			return i
+// ruleWalk follows the numbers n, n+2^k, n+2^(k+1), ... < 2^64 of a class
+// through the predecessor rules: n mod M moves by 2^k mod M from one to
+// the next, an addition where ruleFor would divide for every rule and
+// number.
+type ruleWalk struct {
+	rules      []kernel.Rule
+	at, by, to [16]uint64 // n mod M, 2^k mod M, C mod M, per rule (16 at most: maxRules)
+}
+
+func (s *searcher) ruleWalk(n uint64) (w ruleWalk) {
+	w.rules = s.h.Rules
+	for i, r := range w.rules {
+		w.at[i], w.by[i], w.to[i] = n%r.M, (uint64(1)<<s.k)%r.M, r.C%r.M
+	}
+	return
+}
+
+// next returns the first rule that covers n, the walk's current number,
+// or -1, and moves the walk to n + 2^k.
+func (w *ruleWalk) next(n uint64) int {
+	hit := -1
+	for i, r := range w.rules {
+		if hit < 0 && w.at[i] == w.to[i] && n >= r.C {
+			hit = i
+		}
+		if w.at[i] += w.by[i]; w.at[i] >= r.M || w.at[i] < w.by[i] {
+			w.at[i] -= r.M
 		}
 	}
-	return -1
+	return hit
 }
 
 func sortCycles(cs []kernel.CycleCount) {
