@@ -320,6 +320,12 @@ type part struct {
 	// would keep its cache line moving between the cores.
 	owed    int64
 	stopped bool
+	// The joined survivors below the part's stub, in the order in which
+	// the walk meets them, and the next one to meet: a lookup in the list
+	// of all of them (kernel.Sieve.Joined) would cost a binary search over
+	// tens of millions of residues at every survivor.
+	joined []uint64
+	jnext  int
 }
 
 // settle charges the steps owed to the meter and says whether to go on:
@@ -389,7 +395,8 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		return
 	}
 	n, off := p.inClass(res, s.k)
-	if s.joins && s.r.Sieve.Joined(res) {
+	if p.joined != nil && p.jnext < len(p.joined) && p.joined[p.jnext] == res {
+		p.jnext++
 		// Every member above N0 meets a smaller number after k steps.
 		p.t.counts[kernel.CJoin] += n
 		return
@@ -467,9 +474,12 @@ func (s *searcher) derive(i int, workers int) *kernel.Block {
 	sem := make(chan struct{}, max(workers, 1))
 	end := new(big.Int).Add(x0, new(big.Int).Lsh(big.NewInt(1), uint(h.E)))
 	fast := end.BitLen() <= 64
-	for _, st := range s.stubs {
+	for i, st := range s.stubs {
 		res := st.Res
 		p := &part{s: s, x0: x0, from: split, to: to, t: newTallies(len(h.Rules), h.K), fast: fast, stop: stop}
+		if s.joins {
+			p.joined = s.r.Sieve.JoinedBelow(i)
+		}
 		if fast {
 			p.x0u = x0.Uint64()
 		}

@@ -266,7 +266,7 @@ func (res *Result) claims(f *File, o Options, from, upto int, sieve **Sieve) *Fa
 		if !partial {
 			tally.add(t)
 		}
-		if t.Joined != nil {
+		if p.keep {
 			joined = append(joined, t.Joined)
 		}
 		if done++; o.Progress != nil {

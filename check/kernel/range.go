@@ -18,7 +18,7 @@ import (
 type Sieve struct {
 	Root   Hash
 	Header *SieveHeader
-	chunks [][]uint64 // the joined survivors' residues, chunk by chunk
+	chunks [][]uint64 // the joined survivors' residues, chunk by chunk from chunk 1, in the order of the codes
 	once   sync.Once
 	joined []uint64 // all of them, increasing: made on the first Joined
 }
@@ -34,6 +34,16 @@ func (s *Sieve) Joined(r uint64) bool {
 	})
 	_, ok := slices.BinarySearch(s.joined, r)
 	return ok
+}
+
+// JoinedBelow returns the residues of the joined survivors below stub i
+// (in chunk i+1) in the order of the codes, which is the order in which a
+// walk of the trie below the stub meets them.
+func (s *Sieve) JoinedBelow(i int) []uint64 {
+	if i < len(s.chunks) {
+		return s.chunks[i]
+	}
+	return nil
 }
 
 // Range is what deriving the blocks of one range certificate needs: its
