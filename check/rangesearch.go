@@ -401,12 +401,24 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 		p.t.counts[kernel.CJoin] += n
 		return
 	}
+	if n == 0 {
+		return
+	}
 	if p.fast && tk.big == nil && odd < len(s.pow64) {
 		m := s.pow64[odd]
-		rules := s.ruleWalk(p.x0u + off)
+		var rules ruleWalk
+		if n > 1 { // for one member, a division per rule costs less than the walk's start
+			rules = s.ruleWalk(p.x0u + off)
+		}
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
-			if r := rules.next(num); r >= 0 {
+			r := -1
+			if rules.rules != nil {
+				r = rules.next(num)
+			} else {
+				r = s.ruleFor(num)
+			}
+			if r >= 0 {
 				p.t.rules[r]++
 				continue
 			}
@@ -589,6 +601,16 @@ func collect(index uint32, x0 *big.Int, parts []*part) *kernel.Block {
 		b.Undecided = append(b.Undecided, abs(off))
 	}
 	return b
+}
+
+// ruleFor returns the first rule that covers n < 2^64, or -1.
+func (s *searcher) ruleFor(n uint64) int {
+	for i, r := range s.h.Rules {
+		if n >= r.C && (n-r.C)%r.M == 0 {
+			return i
+		}
+	}
+	return -1
 }
 
 // ruleWalk follows the numbers n, n+2^k, n+2^(k+1), ... < 2^64 of a class
