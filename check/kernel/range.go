@@ -1,12 +1,9 @@
 package kernel
 
 import (
-	"fmt"
 	"math/big"
 	"math/bits"
 	"slices"
-	"sort"
-	"strconv"
 	"sync"
 )
 
@@ -123,12 +120,8 @@ func (r *Range) Derive(i int, m *Meter) *Block {
 	for _, c := range cycles {
 		s.Cycles = append(s.Cycles, *c)
 	}
-	sortCycles(s.Cycles)
+	slices.SortFunc(s.Cycles, func(x, y CycleCount) int { return x.Min.Cmp(y.Min) })
 	return b
-}
-
-func sortCycles(cs []CycleCount) {
-	sort.Slice(cs, func(i, j int) bool { return cs[i].Min.Cmp(cs[j].Min) < 0 })
 }
 
 // total adds up the summaries of the blocks: counts, sums and cycle
@@ -173,52 +166,6 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 	for _, c := range cycles {
 		t.Cycles = append(t.Cycles, *c)
 	}
-	sortCycles(t.Cycles)
+	slices.SortFunc(t.Cycles, func(x, y CycleCount) int { return x.Min.Cmp(y.Min) })
 	return t
-}
-
-// field is one field of a summary or block as text, and how to name it
-// when it differs: "%s: expected %s, found %s".
-type field struct{ name, value string }
-
-// fields lists a summary's fields in the order a difference is named.
-func (s *Summary) fields() []field {
-	var out []field
-	for c, x := range s.Counts {
-		out = append(out, field{countNames[c], x.String()})
-	}
-	out = append(out, field{"rule counts", strconv.Itoa(len(s.Rules))})
-	for i, x := range s.Rules {
-		out = append(out, field{fmt.Sprintf("numbers justified by predecessor rule %d", i), x.String()})
-	}
-	out = append(out, field{"sum of stopping times", s.Sum.String()}, field{"largest stopping time", fmt.Sprintf("%d at %v", s.MaxSigma, s.MaxAt)},
-		field{"records", strconv.Itoa(len(s.Records))})
-	for j, p := range s.Records {
-		out = append(out, field{fmt.Sprintf("record %d", j), fmt.Sprintf("%v (%d steps)", p.N, p.Sigma)})
-	}
-	out = append(out, field{"cycles", strconv.Itoa(len(s.Cycles))})
-	for j, c := range s.Cycles {
-		out = append(out, field{fmt.Sprintf("cycle %d", j), fmt.Sprintf("%v (%v numbers)", c.Min, c.Count)})
-	}
-	return out
-}
-
-// fields lists a block's: its summary's, then its undecided numbers.
-func (b *Block) fields() []field {
-	out := append(b.Summary.fields(), field{"undecided numbers", strconv.Itoa(len(b.Undecided))})
-	for j, n := range b.Undecided {
-		out = append(out, field{fmt.Sprintf("undecided number %d", j), n.String()})
-	}
-	return out
-}
-
-// diff names the first field in which two lists differ, or "". A list's
-// length comes before its entries, so two lists differ first in it.
-func diff(want, got []field) string {
-	for i := range min(len(want), len(got)) {
-		if want[i] != got[i] {
-			return fmt.Sprintf("%s: expected %s, found %s", want[i].name, want[i].value, got[i].value)
-		}
-	}
-	return ""
 }
