@@ -155,13 +155,13 @@ func or(fl, otherwise *Failure) *Failure {
 	return otherwise
 }
 
-// sieveClaims checks the chunks [from, upto) of a sieve, and as far as
-// the file allows its header (steps 5 to 11). Every record is decoded
-// except in a part check, which reads only its own; the chunks outside
-// the share are not judged. Each chunk below the top starts at its stub,
-// found by the map alone, so a judged chunk is true whichever others are
-// read; with every chunk judged true and one per stub, the header's
-// counts are the map's.
+// sieveClaims checks the chunks [from, upto) of a sieve, and as far as the
+// file allows its header, in the order of SPEC.md (steps 5 to 10). Every
+// record is decoded except in a part check, which reads only its own;
+// those outside the share are not judged. Each chunk below the top is
+// judged from its stub, found by the map alone, so a chunk judged true is
+// true whichever others are read; and with every chunk judged true and
+// one per stub, the header's counts are the map's.
 func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve) *Failure {
 	h, whole, all := f.Sieve, f.Records, res.Mode == ModeFull && f.Shard == nil
 	if f.Shard != nil {
@@ -171,22 +171,40 @@ func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve
 	if p.keep = sieve != nil; p.sieveWork(h, budget(o)) != nil {
 		return p.sieveWork(h, budget(o))
 	}
-	stubs, first, last := p.Stubs(whole), 0, f.Records
+	stubs, first, last, joins, joined, done := p.Stubs(whole), 0, f.Records, uint64(0), [][]uint64(nil), 0
 	count := func() *Failure {
 		return invalid(ReasonCount, Where{Claim: "chunks", Expected: atLeast(len(stubs)+1, whole+1), Found: strconv.Itoa(whole)},
 			"the header declares %d chunks below the top; the map has %s classes open at depth %d", whole-1, atLeast(len(stubs), whole), p.D)
 	}
-	if res.Mode == ModePart {
-		first, last = from, upto
+	counts := func() *Failure { // steps 6 and 9: survivors, joins (a whole check), closings
+		survivors, closed := p.counts()
+		claim := func(what string, found, expected uint64) *Failure {
+			return invalid(ReasonCount, Where{Claim: what, Expected: strconv.FormatUint(expected, 10), Found: strconv.FormatUint(found, 10)},
+				"the header counts %d %s; the chunks hold %d", found, what, expected)
+		}
+		if survivors <<= h.K - h.J; survivors != h.Survivors {
+			return claim(fmt.Sprintf("survivors mod 2^%d", h.K), h.Survivors, survivors)
+		} else if all && h.Joins && joins != h.Joined {
+			return claim("joined survivors", h.Joined, joins)
+		}
+		for s := 1; s <= h.J; s++ {
+			if closed[s] != h.ClosedAt[s-1] {
+				return claim(fmt.Sprintf("classes closing at step %d", s), h.ClosedAt[s-1], closed[s])
+			}
+		}
+		return nil
 	}
-	// The count of chunks is judged once the top chunk's claims are, or
-	// first if the top chunk is not judged here.
-	top := f.base() == 0 && from == 0
-	if !top && len(stubs) != whole-1 {
+	if !all && counts() != nil {
+		return counts()
+	} else if !all && len(stubs) != whole-1 {
 		return count()
+	} else if res.Mode == ModePart {
+		if first, last = from, upto; p.exceptions(h) != nil {
+			return p.exceptions(h)
+		}
 	}
 	var memo Memo
-	run, joins, joined, done := sequential, uint64(0), [][]uint64(nil), 0
+	run := sequential
 	if o.Fast != nil && o.Fast.Memo != nil {
 		memo = o.Fast.Memo(p)
 	}
@@ -201,8 +219,8 @@ func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve
 		} else if g > 0 && g <= len(stubs) {
 			want = &stubs[g-1]
 		}
-		t, fl := p.chunk(g, rec, off, want, h.Joins, judge, memo)
-		if g == 0 && judge && fl == nil && len(stubs) != whole-1 {
+		t, fl := p.chunk(g, rec, off, want, whole-1, h.Joins, judge, memo)
+		if g == 0 && all && fl == nil && len(stubs) != whole-1 { // step 7: after record 0
 			return nil, count()
 		}
 		return t, fl
@@ -218,26 +236,12 @@ func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve
 			o.Progress(done, upto-from)
 		}
 	}
-	if fl := run(last-first, work, take); fl != nil {
+	if fl := run(last-first, work, take); fl != nil || res.Mode == ModePart {
 		return fl
-	} else if res.Mode != ModePart && f.end() != nil {
+	} else if f.end() != nil {
 		return f.end()
-	}
-	claim := func(what string, found, expected uint64) *Failure {
-		return invalid(ReasonCount, Where{Claim: what, Expected: strconv.FormatUint(expected, 10), Found: strconv.FormatUint(found, 10)},
-			"the header counts %d %s; the chunks hold %d", found, what, expected)
-	}
-	survivors, closed := p.counts()
-	if survivors <<= h.K - h.J; survivors != h.Survivors {
-		return claim(fmt.Sprintf("survivors mod 2^%d", h.K), h.Survivors, survivors)
-	}
-	for s := 1; s <= h.J; s++ {
-		if closed[s] != h.ClosedAt[s-1] {
-			return claim(fmt.Sprintf("classes closing at step %d", s), h.ClosedAt[s-1], closed[s])
-		}
-	}
-	if all && h.Joins && joins != h.Joined {
-		return claim("joined survivors", h.Joined, joins)
+	} else if all && counts() != nil {
+		return counts()
 	} else if fl := p.exceptions(h); fl != nil {
 		return fl
 	} else if sieve != nil && all {

@@ -110,7 +110,7 @@ func Decode(r io.Reader) (*decoded, error) {
 			return nil, errors.New("record beyond the end")
 		}
 		rec, g := read(i), base+i
-		if _, fl := p.chunk(g, rec, f.Offsets[i], nil, h.Joins, false, nil); fl != nil {
+		if _, fl := p.chunk(g, rec, f.Offsets[i], nil, 0, h.Joins, false, nil); fl != nil {
 			return nil, fl
 		}
 		// The head, as SPEC.md lays it out: start, first and last depth, code bits.

@@ -2,7 +2,6 @@ package kernel
 
 import (
 	"math/big"
-	"math/bits"
 	"slices"
 	"sync"
 )
@@ -48,80 +47,76 @@ type Range struct {
 // is charged to m; it stops once m runs out or the block has more
 // undecided numbers than a record may list.
 func (r *Range) Derive(i int, m *Meter) *Block {
-	h, p := r.H, r.P
+	h, p, one, sigma := r.H, r.P, big.NewInt(1), new(big.Int)
 	n, hi := h.Bounds(i)
 	low := new(big.Int).And(n, new(big.Int).SetUint64(1<<64-1)).Uint64() // n mod 2^64: its first 64 parities
-	var counts [6]uint64
-	rules := make([]uint64, len(h.Rules))
-	var sumHi, sumLo uint64
-	b := &Block{Index: uint32(i)}
-	cycles := map[string]*CycleCount{}
-	drop := func(n *big.Int, sigma uint32, c int) {
-		counts[c]++
-		var carry uint64
-		sumLo, carry = bits.Add64(sumLo, uint64(sigma), 0)
-		sumHi += carry
-		if sigma > b.Summary.MaxSigma { // n increases: a new maximum is a record
-			b.Summary.MaxSigma, b.Summary.MaxAt = sigma, new(big.Int).Set(n)
-			b.Summary.Records = append(b.Summary.Records, Point{b.Summary.MaxAt, sigma})
+	b := &Block{Index: uint32(i), Summary: newSummary(len(h.Rules))}
+	s := &b.Summary
+	drop := func(c int, t uint32) {
+		s.Counts[c].Add(s.Counts[c], one)
+		s.Sum.Add(s.Sum, sigma.SetUint64(uint64(t)))
+		if t > s.MaxSigma { // n increases: a new maximum is a record
+			s.MaxSigma, s.MaxAt = t, new(big.Int).Set(n)
+			s.Records = append(s.Records, Point{s.MaxAt, t})
 		}
 	}
-	fate := func(n *big.Int, c int) {
+	for ; n.Cmp(hi) < 0 && !m.Exceeded() && len(b.Undecided) <= MaxList; n.Add(n, one) {
+		x, c := low, CSmall
+		if low++; n.Cmp(r.N0) > 0 {
+			c = CSearch
+			// The class of n: the first t steps with s odd ones such that
+			// a^s < 2^t; then T^t(n) < n and t is the stopping time of n > N0.
+			closed := 0
+			for t, v, odd := 1, x, 0; t <= h.K && closed == 0; t++ {
+				if v, odd = p.Step(v, odd); p.Closes(t, odd) {
+					closed = t
+				}
+			}
+			if closed > 0 {
+				drop(CSieve, uint32(closed))
+				continue
+			} else if r.Sieve.Joined(x & (1<<h.K - 1)) {
+				s.Counts[CJoin].Add(s.Counts[CJoin], one)
+				continue
+			} else if rule := h.RuleFor(n); rule >= 0 {
+				s.Rules[rule].Add(s.Rules[rule], one)
+				continue
+			}
+		}
 		switch e := p.Fate(n, h.Cap, h.Ceiling, m); e.Kind {
 		case Descends:
-			drop(n, e.Steps, c)
+			drop(c, e.Steps)
 		case Cycle:
-			counts[CCycle]++
-			key := e.CycleMin.String()
-			if cycles[key] == nil {
-				cycles[key] = &CycleCount{e.CycleMin, new(big.Int)}
-			}
-			cycles[key].Count.Add(cycles[key].Count, big.NewInt(1))
+			s.Counts[CCycle].Add(s.Counts[CCycle], one)
+			s.Cycles = addCycle(s.Cycles, e.CycleMin, one)
 		default:
-			counts[CUndecided]++
+			s.Counts[CUndecided].Add(s.Counts[CUndecided], one)
 			b.Undecided = append(b.Undecided, new(big.Int).Set(n))
 		}
 	}
-	for ; n.Cmp(hi) < 0 && !m.Exceeded() && len(b.Undecided) <= MaxList; n.Add(n, big.NewInt(1)) {
-		if n.Cmp(r.N0) <= 0 {
-			fate(n, CSmall)
-			low++
-			continue
-		}
-		// The class of n: the first t steps with s odd ones such that
-		// a^s < 2^t; then T^t(n) < n and t is the stopping time of n > N0.
-		v, s, closed := low, 0, 0
-		for t := 1; t <= h.K && closed == 0; t++ {
-			if v, s = p.Step(v, s); p.Closes(t, s) {
-				closed = t
-			}
-		}
-		switch rule := h.RuleFor(n); {
-		case closed > 0:
-			drop(n, uint32(closed), CSieve)
-		case r.Sieve.Joined(low & (1<<h.K - 1)):
-			counts[CJoin]++
-		case rule >= 0:
-			rules[rule]++
-		default:
-			fate(n, CSearch)
-		}
-		low++
-	}
-	s := &b.Summary
-	for c, x := range counts {
-		s.Counts[c] = new(big.Int).SetUint64(x)
-	}
-	for _, x := range rules {
-		s.Rules = append(s.Rules, new(big.Int).SetUint64(x))
-	}
-	s.Sum = new(big.Int).Lsh(new(big.Int).SetUint64(sumHi), 64)
-	s.Sum.Add(s.Sum, new(big.Int).SetUint64(sumLo))
-	for _, c := range cycles {
-		s.Cycles = append(s.Cycles, *c)
-	}
-	slices.SortFunc(s.Cycles, func(x, y CycleCount) int { return x.Min.Cmp(y.Min) })
 	return b
+}
+
+func newSummary(rules int) Summary {
+	s := Summary{Sum: new(big.Int), Rules: []*big.Int{}}
+	for c := range s.Counts {
+		s.Counts[c] = new(big.Int)
+	}
+	for range rules {
+		s.Rules = append(s.Rules, new(big.Int))
+	}
+	return s
+}
+
+// addCycle adds count numbers that reach the cycle with smallest member
+// least to cs, kept in increasing order of least.
+func addCycle(cs []CycleCount, least, count *big.Int) []CycleCount {
+	i, found := slices.BinarySearchFunc(cs, least, func(c CycleCount, x *big.Int) int { return c.Min.Cmp(x) })
+	if found {
+		cs[i].Count.Add(cs[i].Count, count)
+		return cs
+	}
+	return slices.Insert(cs, i, CycleCount{least, new(big.Int).Set(count)})
 }
 
 // total adds up the summaries of the blocks: counts, sums and cycle
@@ -129,14 +124,7 @@ func (r *Range) Derive(i int, m *Meter) *Block {
 // every earlier one, the largest stopping time the first block's that
 // has it (section 6).
 func total(h *RangeHeader, blocks []*Block) *Summary {
-	t := &Summary{Sum: new(big.Int), Rules: []*big.Int{}}
-	for c := range t.Counts {
-		t.Counts[c] = new(big.Int)
-	}
-	for range h.Rules {
-		t.Rules = append(t.Rules, new(big.Int))
-	}
-	cycles := map[string]*CycleCount{}
+	t := newSummary(len(h.Rules))
 	for _, b := range blocks {
 		s := &b.Summary
 		for c, x := range append(s.Counts[:], s.Rules...) {
@@ -146,8 +134,7 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 				t.Rules[c-len(t.Counts)].Add(t.Rules[c-len(t.Counts)], x)
 			}
 		}
-		t.Sum.Add(t.Sum, s.Sum)
-		if s.MaxSigma > t.MaxSigma {
+		if t.Sum.Add(t.Sum, s.Sum); s.MaxSigma > t.MaxSigma {
 			t.MaxSigma, t.MaxAt = s.MaxSigma, s.MaxAt
 		}
 		for _, p := range s.Records {
@@ -156,16 +143,8 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 			}
 		}
 		for _, c := range s.Cycles {
-			if m := cycles[c.Min.String()]; m != nil {
-				m.Count.Add(m.Count, c.Count)
-			} else {
-				cycles[c.Min.String()] = &CycleCount{c.Min, new(big.Int).Set(c.Count)}
-			}
+			t.Cycles = addCycle(t.Cycles, c.Min, c.Count)
 		}
 	}
-	for _, c := range cycles {
-		t.Cycles = append(t.Cycles, *c)
-	}
-	slices.SortFunc(t.Cycles, func(x, y CycleCount) int { return x.Min.Cmp(y.Min) })
-	return t
+	return &t
 }

@@ -9,19 +9,15 @@ import (
 )
 
 // The sieve's trie re-derived one class at a time, and the chunk records
-// that carry it with their joins (SPEC.md, sections 1, 2 "Chunks" and
-// "Trie codes", 3 step 7, 7 and 8).
+// that carry it (SPEC.md, sections 1, 2 "Chunks", "Trie codes", 3, 7, 8).
 
-const (
-	chunkHead        = 14      // the bytes of a chunk's head
-	maxJoinSurvivors = 1 << 22 // survivors of a chunk of a sieve with joins
-)
+// The bytes of a chunk's head; the survivors of a chunk with joins.
+const chunkHead, maxJoinSurvivors = 14, 1 << 22
 
 // Params is the arithmetic of one map and step budget j. The walk follows
-// T^t(r) modulo 2^64, which fixes the parities of the next 64-t steps
-// (SPEC.md, "Why the walk may work modulo 2^64"): the wrap-around is
-// modular arithmetic by design. Whether a class closes is decided by the
-// exact bit length of a^s.
+// T^t(r) mod 2^64, which fixes the parities of the next 64-t steps
+// (SPEC.md, "Why the walk may work modulo 2^64"); whether a class closes
+// is decided by the exact bit length of a^s.
 type Params struct {
 	Map
 	J, D int      // the step budget and the split depth
@@ -75,8 +71,8 @@ type Stub struct {
 }
 
 // Stubs walks the top of the trie by the map alone and returns the classes
-// open at depth D in the order of the codes, at most max of them, so that
-// the list never outgrows what the file's record count allows.
+// open at depth D in the order of the codes, at most max of them (the
+// file's record count bounds the list, not the map).
 func (p *Params) Stubs(max int) []Stub {
 	var out []Stub
 	var walk func(t, s int, v, res uint64)
@@ -95,10 +91,9 @@ func (p *Params) Stubs(max int) []Stub {
 	return out
 }
 
-// counts counts the survivors mod 2^j and the classes closing at each
-// step over (depth, odd steps) pairs, on which closing alone depends
-// (section 7): a sieve's counts by the map alone. Once every chunk present
-// is judged true and the chunks are the stubs, they are the chunks' counts.
+// counts counts the survivors mod 2^j and the classes closing at each step
+// over (depth, odd steps) pairs, on which closing alone depends (section
+// 7): once every chunk is judged true and one per stub, the chunks' counts.
 func (p *Params) counts() (survivors uint64, closed []uint64) {
 	cur, closed := []uint64{1}, make([]uint64, p.J+1)
 	for d := 0; d < p.J; d++ {
@@ -125,13 +120,13 @@ type Tally struct {
 	joins  uint64
 }
 
-// Subtree is a memo entry: the code of the trie below a class at depth t
-// with s odd steps and value u mod 2^(J-t), which alone fix it. Only
-// Params.Subtree makes one, once it has walked it.
+// Subtree is a memo entry: the code (n bits in words, left-aligned) of the
+// trie below a class at depth t with s odd steps and value u mod 2^(J-t),
+// which alone fix it. Only Params.Subtree makes one, once it walked it.
 type Subtree struct {
 	t, s     int
-	u, n     uint64   // n: the code's length in bits
-	words    []uint64 // the code, left-aligned
+	u, n     uint64
+	words    []uint64
 	verified bool
 }
 
@@ -142,9 +137,8 @@ type Memo interface {
 	Lookup(s int, v uint64) *Subtree
 }
 
-// Subtree verifies a memo entry: it walks the class (t, s, u) down to
-// depth J against the code in words (n bits), and returns the entry, or
-// nil if that code is not the true one.
+// Subtree walks the class (t, s, u) down to depth J against the code and
+// returns it as a memo entry, or nil if it is not the true one.
 func (p *Params) Subtree(t, s int, u uint64, words []uint64, n uint64) *Subtree {
 	code := make([]byte, 8*len(words))
 	for i, x := range words {
@@ -158,22 +152,20 @@ func (p *Params) Subtree(t, s int, u uint64, words []uint64, n uint64) *Subtree 
 }
 
 // walk reads the codes of one chunk, and, while judge holds and no claim
-// has failed, compares each with what the map says about its class.
-// After a false claim it goes on decoding, so that a record that breaks
-// the grammar is found malformed before any claim of it is judged
-// (SPEC.md, section 3).
+// has failed, compares each with what the map says about its class. After
+// a false claim it goes on decoding, so that a record that breaks the
+// grammar is malformed before any claim of it is judged (section 3).
 type walk struct {
-	p         *Params
-	chunk     int
-	at        int64 // the record's offset
-	code      []byte
-	nbit, pos uint64
-	end       int // the depth of the chunk's leaves
-	judge     bool
-	memo      Memo
-	found     []uint64 // the survivors, for a join section
-	claim     *Failure // the first false claim
-	bad       *Failure // the codes break the grammar
+	p          *Params
+	chunk, end int   // end: the depth of the chunk's leaves
+	at         int64 // the record's offset
+	code       []byte
+	nbit, pos  uint64
+	judge, top bool
+	room       int // the top chunk: the open classes the file's record count allows
+	memo       Memo
+	found      []uint64 // the survivors, for a join section
+	claim, bad *Failure // the first false claim; the codes break the grammar
 }
 
 func (w *walk) bit() (uint64, bool) {
@@ -236,6 +228,10 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		return false
 	} else if w.found != nil {
 		w.found = append(w.found, res)
+	} else if w.top && w.room == 0 {
+		w.fail(ReasonCount, res, t, "chunks", "the top of the trie has more classes open at depth %d than the header's chunks below the top", t)
+	} else if w.top {
+		w.room--
 	}
 	return true
 }
@@ -259,16 +255,15 @@ func (w *walk) matches(e *Subtree, t, s int, v uint64) bool {
 	return true
 }
 
-// chunk decodes record g (the whole's index) at offset base and, if
-// judge, judges it: its depths, its start (want, the stub it must start
-// at; nil for the top chunk), every class by its code, and its joins. A
-// record that breaks the grammar is malformed, whatever it claims; else
-// its first false claim is the failure (SPEC.md, section 3, step 7).
-func (p *Params) chunk(g int, rec []byte, base int64, want *Stub, joins, judge bool, memo Memo) (*Tally, *Failure) {
+// chunk decodes record g (the whole's index) at offset base and, if judge,
+// judges it: its depths, its start (want, its stub), every class by its
+// code, and its joins. A record that breaks the grammar is malformed,
+// whatever it claims; else its first false claim fails (section 3, step 7).
+func (p *Params) chunk(g int, rec []byte, base int64, want *Stub, room int, joins, judge bool, memo Memo) (*Tally, *Failure) {
 	if len(rec) < chunkHead {
 		return nil, malformed(base, "chunk %d: a record of %d bytes is shorter than the %d-byte chunk head", g, len(rec), chunkHead)
 	}
-	w := &walk{p: p, chunk: g, at: base, nbit: uint64(binary.BigEndian.Uint32(rec[10:])), code: rec[chunkHead:], end: int(rec[9]), judge: judge}
+	w := &walk{p: p, chunk: g, at: base, nbit: uint64(binary.BigEndian.Uint32(rec[10:])), code: rec[chunkHead:], end: int(rec[9]), judge: judge, top: g == 0, room: room}
 	begin, start, n := int(rec[8]), binary.BigEndian.Uint64(rec), (w.nbit+7)/8
 	if begin > w.end || w.end > maxK {
 		return nil, malformed(base+8, "chunk %d spans depths %d to %d", g, begin, w.end)
@@ -342,12 +337,11 @@ func readJoins(rest []byte, n, chunk int, at int64) (joined []bool, deltas []uin
 	var explicit []int
 	for x := range n {
 		c, ok := w.bit()
-		if ok && c == 1 {
-			var y uint64
-			y, ok = w.bit()
-			if joined[x], deltas[x] = true, 1; y == 1 {
+		if y := uint64(0); ok && c == 1 {
+			if y, ok = w.bit(); y == 1 {
 				explicit = append(explicit, x)
 			}
+			joined[x], deltas[x] = true, 1
 		}
 		if !ok {
 			return nil, nil, malformed(at, "chunk %d: the join codes of %d survivors need more than the section's %d bytes", chunk, n, len(rest))
