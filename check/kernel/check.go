@@ -118,9 +118,10 @@ func check(r io.ReaderAt, size int64, o Options, part *Hash, sieve **Sieve) *Res
 			return res.fail(usage(ReasonPart, fmt.Sprintf("want i/N with 0 <= i < N <= %d", f.Records), "-part %d/%d names no share of this certificate's %d records", i, n, f.Records))
 		}
 		res.Span = &SpanResult{First: from, Count: upto - from}
-		if ok, fl := f.proves(LeafHash(f.Header), 0); fl != nil || !ok {
-			return res.fail(or(fl, invalid(ReasonAudit, Where{Claim: "header", Expected: part.String()},
-				"the header with its audit path does not lead to the root %s: another certificate, or an altered one", part)))
+		if ok, fl := f.proves(LeafHash(f.Header), 0); fl != nil {
+			return res.fail(fl)
+		} else if !ok {
+			return res.fail(invalid(ReasonAudit, Where{Claim: "header", Expected: part.String()}, "the header with its audit path does not lead to the root %s: another certificate, or an altered one", part))
 		}
 	} else {
 		if fl := f.readIndex(); fl != nil {
@@ -146,13 +147,6 @@ func check(r io.ReaderAt, size int64, o Options, part *Hash, sieve **Sieve) *Res
 func (res *Result) fail(fl *Failure) *Result {
 	res.Failure = fl
 	return res
-}
-
-func or(fl, otherwise *Failure) *Failure {
-	if fl != nil {
-		return fl
-	}
-	return otherwise
 }
 
 // sieveClaims checks the chunks [from, upto) of a sieve, and as far as the

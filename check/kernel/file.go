@@ -15,12 +15,7 @@ import (
 
 // Caps of the format (SPEC.md, section 4): each bounds a loop or an
 // allocation that the input steers.
-const (
-	preambleLen  = 18
-	maxBody      = 1 << 20
-	maxRecords   = 1 << 24
-	maxRecordLen = 1 << 30
-)
+const preambleLen, maxBody, maxRecords, maxRecordLen = 18, 1 << 20, 1 << 24, 1 << 30
 
 // Hash is a BLAKE2b-256 hash: a leaf, an inner node or a root.
 type Hash [32]byte
@@ -31,7 +26,12 @@ func (h Hash) short() string { return hex.EncodeToString(h[:8]) + "…" }
 
 // LeafHash and nodeHash have different first bytes, so that no record can
 // pass for an inner node (SPEC.md, "Hashes").
-func LeafHash(b []byte) Hash { return blake2b.Sum256(append([]byte{0}, b...)) }
+func LeafHash(b []byte) (h Hash) {
+	d, _ := blake2b.New256(nil)
+	d.Write([]byte{0})
+	d.Write(b)
+	return Hash(d.Sum(nil))
+}
 
 func nodeHash(l, r Hash) Hash { return blake2b.Sum256(append(append([]byte{1}, l[:]...), r[:]...)) }
 
@@ -90,15 +90,18 @@ func open(r io.ReaderAt, size int64) (*File, *Failure) {
 	if fl != nil {
 		return f, fl
 	}
-	if string(pre[:8]) != magic {
+	switch {
+	case string(pre[:8]) != magic:
 		return f, malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
-	} else if pre[8] != version {
+	case pre[8] != version:
 		fl = malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
 		if fl.Reason = ReasonVersion; pre[8] < version {
 			fl.Msg = fmt.Sprintf("format version %d is an older format that this checker no longer reads (it reads version %d)", pre[8], version)
 			fl.Hint = "re-emit the certificate with this version of descent"
 		}
 		return f, fl
+	case pre[9] != kindSieve && pre[9] != kindJoins && pre[9] != kindRange && pre[9] != kindShard:
+		return f, malformed(9, "unknown certificate kind %q", pre[9])
 	}
 	records, bodyLen := binary.BigEndian.Uint32(pre[10:]), binary.BigEndian.Uint32(pre[14:])
 	if records < 1 || records > maxRecords {
@@ -118,10 +121,8 @@ func open(r io.ReaderAt, size int64) (*File, *Failure) {
 		}
 	case kindRange:
 		f.Range, fl = parseRangeHeader(body, f.Records)
-	case kindSieve, kindJoins:
-		f.Sieve, fl = parseSieveHeader(body, f.Kind == kindJoins, f.Records)
 	default:
-		fl = malformed(9, "unknown certificate kind %q", f.Kind)
+		f.Sieve, fl = parseSieveHeader(body, f.Kind == kindJoins, f.Records)
 	}
 	return f, fl
 }

@@ -54,14 +54,6 @@ func (p *Params) pow(s int) *big.Int {
 	return new(big.Int).Exp(big.NewInt(int64(p.A)), big.NewInt(int64(s)), nil)
 }
 
-func (p *Params) power(s int) string {
-	x := p.pow(s)
-	if x.BitLen() > 64 {
-		return fmt.Sprintf("%d^%d (%d bits)", p.A, s, x.BitLen())
-	}
-	return fmt.Sprintf("%d^%d = %v", p.A, s, x)
-}
-
 // Stub is a class open at depth D (Res mod 2^D, S odd steps, V =
 // T^D(Res) mod 2^64): chunk i >= 1 starts at stub i-1.
 type Stub struct {
@@ -201,7 +193,7 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 		even, shut := v&1, p.Closes(t+1, s) // the child whose step t+1 is even closes at t+1
 		if x == 0 {
 			if shut {
-				w.fail(ReasonMissedClosing, res|even<<t, t+1, "open", "the class closes at step %d (%s < 2^%d) but is claimed open", t+1, p.power(s), t+1)
+				w.fail(ReasonMissedClosing, res|even<<t, t+1, "open", "the class closes at step %d (%d^%d < 2^%d) but is claimed open", t+1, p.A, s, t+1)
 			}
 			if v0, s0 := p.Step(v, s); !w.visit(t+1, s0, v0, res) {
 				return false
@@ -216,9 +208,9 @@ func (w *walk) visit(t, s int, v, res uint64) bool {
 			return false
 		}
 		if y != even {
-			w.fail(ReasonFalseClosing, res|y<<t, t+1, "closed", "step %d of this class is odd under %s, so it has %d odd steps and %s > 2^%d; it does not close there", t+1, p.Map, s+1, p.power(s+1), t+1)
+			w.fail(ReasonFalseClosing, res|y<<t, t+1, "closed", "step %d of this class is odd under %s, so it has %d odd steps and %d^%d > 2^%d; it does not close there", t+1, p.Map, s+1, p.A, s+1, t+1)
 		} else if !shut {
-			w.fail(ReasonFalseClosing, res|y<<t, t+1, "closed", "after %d steps the class has %d odd steps and %s >= 2^%d; it has not closed", t+1, s, p.power(s), t+1)
+			w.fail(ReasonFalseClosing, res|y<<t, t+1, "closed", "after %d steps the class has %d odd steps and %d^%d >= 2^%d; it has not closed", t+1, s, p.A, s, t+1)
 		}
 		v, s = p.Step(v+(1-y)*p.apow[s], s)
 		res |= (1 - y) << t
