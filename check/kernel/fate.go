@@ -55,7 +55,8 @@ type Meter struct{ left atomic.Int64 }
 
 func NewMeter(steps *big.Int) *Meter {
 	m := &Meter{}
-	if m.left.Store(math.MaxInt64); steps.IsInt64() {
+	m.left.Store(math.MaxInt64)
+	if steps.IsInt64() {
 		m.left.Store(steps.Int64())
 	}
 	return m
@@ -152,8 +153,8 @@ func (p *Params) exceptions(h *SieveHeader) *Failure {
 	return nil
 }
 
-// DefaultBudget is the budget when none is given: 2^48 steps, some days
-// of one core at most.
+// DefaultBudget is the budget when none is given: 2^48 steps, some days of
+// one core at most.
 const DefaultBudget = 1 << 48
 
 func budget(o Options) *big.Int {

@@ -2,6 +2,7 @@ package kernel
 
 import (
 	"math/big"
+	"math/bits"
 	"slices"
 	"sync"
 )
@@ -47,15 +48,16 @@ type Range struct {
 // is charged to m; it stops once m runs out or the block has more
 // undecided numbers than a record may list.
 func (r *Range) Derive(i int, m *Meter) *Block {
-	h, p, one, sigma := r.H, r.P, big.NewInt(1), new(big.Int)
+	h, p, one := r.H, r.P, big.NewInt(1)
 	n, hi := h.Bounds(i)
 	low := new(big.Int).And(n, new(big.Int).SetUint64(1<<64-1)).Uint64() // n mod 2^64: its first 64 parities
 	b := &Block{Index: uint32(i), Summary: newSummary(len(h.Rules))}
-	s := &b.Summary
-	drop := func(c int, t uint32) {
-		s.Counts[c].Add(s.Counts[c], one)
-		s.Sum.Add(s.Sum, sigma.SetUint64(uint64(t)))
-		if t > s.MaxSigma { // n increases: a new maximum is a record
+	s, counts, rules, sumHi, sumLo := &b.Summary, [6]uint64{}, make([]uint64, len(h.Rules)), uint64(0), uint64(0)
+	drop := func(c int, t uint32) { // machine words here: this loop is the reference check's time
+		var carry uint64
+		counts[c]++
+		sumLo, carry = bits.Add64(sumLo, uint64(t), 0)
+		if sumHi += carry; t > s.MaxSigma { // n increases: a new maximum is a record
 			s.MaxSigma, s.MaxAt = t, new(big.Int).Set(n)
 			s.Records = append(s.Records, Point{s.MaxAt, t})
 		}
@@ -76,10 +78,10 @@ func (r *Range) Derive(i int, m *Meter) *Block {
 				drop(CSieve, uint32(closed))
 				continue
 			} else if r.Sieve.Joined(x & (1<<h.K - 1)) {
-				s.Counts[CJoin].Add(s.Counts[CJoin], one)
+				counts[CJoin]++
 				continue
 			} else if rule := h.RuleFor(n); rule >= 0 {
-				s.Rules[rule].Add(s.Rules[rule], one)
+				rules[rule]++
 				continue
 			}
 		}
@@ -87,13 +89,18 @@ func (r *Range) Derive(i int, m *Meter) *Block {
 		case Descends:
 			drop(c, e.Steps)
 		case Cycle:
-			s.Counts[CCycle].Add(s.Counts[CCycle], one)
+			counts[CCycle]++
 			s.Cycles = addCycle(s.Cycles, e.CycleMin, one)
 		default:
-			s.Counts[CUndecided].Add(s.Counts[CUndecided], one)
+			counts[CUndecided]++
 			b.Undecided = append(b.Undecided, new(big.Int).Set(n))
 		}
 	}
+	all := append(s.Counts[:], s.Rules...)
+	for c, x := range append(counts[:], rules...) {
+		all[c].SetUint64(x)
+	}
+	s.Sum.Lsh(new(big.Int).SetUint64(sumHi), 64).Add(s.Sum, new(big.Int).SetUint64(sumLo))
 	return b
 }
 
