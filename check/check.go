@@ -15,7 +15,10 @@
 //     parallel (rangesearch.go, FuzzSearchAgainstKernel and
 //     FuzzRangeAgainstKernel).
 //
-// descent check -reference runs the kernel alone.
+// The reader's choices that make no claim true or false are this
+// package's too (audit.go): the blocks an audit draws, with its seed, and
+// the records -part names. descent check -reference runs the kernel alone
+// with them.
 package check
 
 import (
