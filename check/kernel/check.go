@@ -7,9 +7,8 @@ import (
 	"strconv"
 )
 
-// The order of a check (SPEC.md, section 3): the container, then the
-// claims of a sieve or a range, of the whole, a share, a shard or a part,
-// all by one path over the records.
+// The order of a check (SPEC.md, section 3), one path over the records
+// for a whole, a share, a shard and a part.
 
 // Options tune a check. None changes the verdict.
 type Options struct {
@@ -37,9 +36,8 @@ type Span struct{ I, N int }
 // Run and Derive are fuzzed against the kernel's own way (package check).
 type Fast struct {
 	Memo func(p *Params) Memo // subtrees of the last levels of the trie
-	// Run calls work(i), i = 0..n-1, perhaps at once, and take on each
-	// result in the order of i up to the first failure in that order,
-	// which it returns.
+	// Run calls work(i), i < n, perhaps at once, and take on the results in
+	// the order of i up to the first failure in that order, which it returns.
 	Run    func(n int, work func(i int) (*Tally, *Failure), take func(*Tally)) *Failure
 	Derive func(r *Range, i int, m *Meter) *Block // as Range.Derive
 }
@@ -90,9 +88,8 @@ func Part(r io.ReaderAt, size int64, part Span, root Hash, o Options) *Result {
 	return check(r, size, o, &root, nil)
 }
 
-// check checks a certificate, or in a part check (part set) some of its
-// records against the root part, and puts a whole sieve, checked in full,
-// with its joins in *sieve if sieve is not nil.
+// check checks a certificate, or in a part check its records o.Span
+// against the root part; with sieve set, it keeps a whole sieve there.
 func check(r io.ReaderAt, size int64, o Options, part *Hash, sieve **Sieve) *Result {
 	res := &Result{Mode: ModeFull}
 	f, fl := open(r, size)
@@ -360,7 +357,7 @@ func (res *Result) rangeClaims(f *File, o Options, from, upto int) *Failure {
 		return overBudget(fmt.Sprintf("deriving %d blocks of this range", len(chosen)), work, budget(o))
 	}
 	rg := &Range{H: h, Sieve: sv, P: NewParams(h.Map, h.K)}
-	rg.N0 = rg.P.SmallBound()
+	rg.N0 = rg.P.bound(true) // above N0 the sieve rule and a search's jump are exact
 	derive := rg.Derive
 	if o.Fast != nil && o.Fast.Derive != nil {
 		derive = func(i int, m *Meter) *Block { return o.Fast.Derive(rg, i, m) }

@@ -7,9 +7,8 @@ import (
 	"sync/atomic"
 )
 
-// Exceptions and fates (SPEC.md, section 1), the work they may take
-// (section 4), the small bound of a range (section 6) and predecessor
-// rules (section 9), all in math/big.
+// Fates and exceptions (SPEC.md, section 1), work (section 4), the small
+// bound (section 6) and predecessor rules (section 9), in math/big.
 
 // apply sets x to T(x) and says whether the step was odd.
 func (p *Params) apply(x *big.Int) bool {
@@ -44,10 +43,6 @@ func (p *Params) bound(small bool) *big.Int {
 	}
 	return limit
 }
-
-// SmallBound is N0 of a range on a sieve of this j = k (section 6): above
-// it the sieve rule and the jump of a search are exact.
-func (p *Params) SmallBound() *big.Int { return p.bound(true) }
 
 // Meter counts the steps of T a derivation may still take; a nil Meter
 // allows any number. It is safe for concurrent use.
@@ -114,11 +109,10 @@ func (e Fate) String() string {
 	return "undecided within the cap"
 }
 
-// exceptions finds every exception afresh, n up to the bound, following n
-// until its class closes (t steps, s odd) and keeping it if T^t(n) >= n;
-// it compares the header's list with them, entry by entry in increasing
-// order, fates included (section 3, step 10). The work bound, checked
-// before, keeps the bound within int64.
+// exceptions finds every exception afresh up to the bound (n whose class
+// closes at step t with T^t(n) >= n) and compares the header's list with
+// them in increasing order, fates included (section 3, step 10). The work
+// bound, checked before, keeps the bound within int64.
 func (p *Params) exceptions(h *SieveHeader) *Failure {
 	limit, listed := p.bound(false), h.Exceptions
 	fail := func(n *big.Int, format string, args ...any) *Failure {

@@ -65,9 +65,8 @@ type File struct {
 	root    *Hash // a part check: the given root
 }
 
-// readAt reads n bytes at off. It allocates only once they are known to
-// lie in the file, so that no length the input states is allocated ahead
-// of the bytes.
+// readAt reads n bytes at off, allocating only once they are known to lie
+// in the file: no length the input states is allocated ahead of its bytes.
 func (f *File) readAt(off, n int64, what string) ([]byte, *Failure) {
 	if off < 0 || n < 0 || off > f.size || n > f.size-off {
 		off = min(max(off, 0), f.size)
@@ -245,9 +244,8 @@ func (f *File) end() *Failure {
 	return nil
 }
 
-// proves says whether leaf i, hashed up its audit path (one stored
-// sibling per level where one exists), leads to the given root. It reads
-// only those siblings (SPEC.md, section 7).
+// proves says whether leaf i, hashed up its audit path (a stored sibling
+// per level where one exists, read alone), leads to the root (section 7).
 func (f *File) proves(leaf Hash, i int) (bool, *Failure) {
 	at := int64(len(f.Header))
 	sizes := levelSizes(f.Records + 1)

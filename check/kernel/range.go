@@ -42,11 +42,10 @@ type Range struct {
 	N0    *big.Int
 }
 
-// Derive re-derives block i in the plainest way: every number in
-// increasing order, by the first justification that applies (section 6),
-// the fate rule of section 1 from the number itself. Every step of a fate
-// is charged to m; it stops once m runs out or the block has more
-// undecided numbers than a record may list.
+// Derive re-derives block i in the plainest way: each number in turn, by
+// the first justification that applies (section 6), else the fate rule
+// from the number itself, charging m every step; it stops once m runs out
+// or the block has more undecided numbers than a record may list.
 func (r *Range) Derive(i int, m *Meter) *Block {
 	h, p, one := r.H, r.P, big.NewInt(1)
 	n, hi := h.Bounds(i)
