@@ -363,23 +363,35 @@ func readJoins(rest []byte, n, chunk int, at int64) (joined []bool, deltas []uin
 // join checks that survivor r mod 2^k joins r - delta (SPEC.md, section 8):
 // after k steps both have the same odd steps and the same value.
 func (p *Params) join(w *walk, r, delta uint64) *Failure {
-	where := Where{Chunk: at(w.chunk), Residue: strconv.FormatUint(r, 10), Step: p.J, Claim: fmt.Sprintf("joins r - %d", delta)}
-	if delta > r {
-		return invalid(ReasonJoin, where, "the partner of a join must be a residue 0 <= r' < r; r - %d is below zero", delta)
+	where := func() Where { // made only for a failure: joins are many
+		return Where{Chunk: at(w.chunk), Residue: strconv.FormatUint(r, 10), Step: p.J, Claim: fmt.Sprintf("joins r - %d", delta)}
 	}
-	s1, v1 := p.afterK(r)
-	s2, v2 := p.afterK(r - delta)
+	if delta > r {
+		return invalid(ReasonJoin, where(), "the partner of a join must be a residue 0 <= r' < r; r - %d is below zero", delta)
+	}
+	s1, v1, b1 := p.afterK(r)
+	s2, v2, b2 := p.afterK(r - delta)
 	if s1 != s2 {
-		return invalid(ReasonJoin, where, "after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", p.J, r, s1, r-delta, p.J, s2)
-	} else if v1.Cmp(v2) != 0 {
-		return invalid(ReasonJoin, where, "T^%d(%d) = %v but T^%d(%d) = %v: the paths do not meet", p.J, r, v1, p.J, r-delta, v2)
+		return invalid(ReasonJoin, where(), "after %d steps class %d has %d odd steps and %d mod 2^%d has %d: their paths can meet for some q at most, not for all", p.J, r, s1, r-delta, p.J, s2)
+	} else if b1 == nil && b2 == nil && v1 == v2 {
+		return nil // the common case, without math/big
+	} else if x1, x2 := or(b1, v1), or(b2, v2); x1.Cmp(x2) != 0 {
+		return invalid(ReasonJoin, where(), "T^%d(%d) = %v but T^%d(%d) = %v: the paths do not meet", p.J, r, x1, p.J, r-delta, x2)
 	}
 	return nil
 }
 
+// or is a result of afterK as one number.
+func or(b *big.Int, v uint64) *big.Int {
+	if b != nil {
+		return b
+	}
+	return new(big.Int).SetUint64(v)
+}
+
 // afterK follows x for k steps exactly and returns the odd steps and
-// T^k(x): in 64 bits while the steps fit, then in math/big.
-func (p *Params) afterK(x uint64) (s int, v *big.Int) {
+// T^k(x): in v while the steps fit in 64 bits (b nil), else in b.
+func (p *Params) afterK(x uint64) (s int, v uint64, b *big.Int) {
 	for t := 0; t < p.J; t++ {
 		if x&1 == 0 {
 			x >>= 1
@@ -397,9 +409,9 @@ func (p *Params) afterK(x uint64) (s int, v *big.Int) {
 					s++
 				}
 			}
-			return s, z
+			return s, 0, z
 		}
 		x, s = lo>>1, s+1
 	}
-	return s, new(big.Int).SetUint64(x)
+	return s, x, nil
 }
