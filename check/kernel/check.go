@@ -196,9 +196,6 @@ func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve
 	}
 	var memo Memo
 	run := sequential
-	if o.Fast != nil && o.Fast.Memo != nil {
-		memo = o.Fast.Memo(p)
-	}
 	if o.Fast != nil && o.Fast.Run != nil {
 		run = o.Fast.Run
 	}
@@ -227,7 +224,15 @@ func (res *Result) sieveClaims(f *File, o Options, from, upto int, sieve **Sieve
 			o.Progress(done, upto-from)
 		}
 	}
-	if fl := run(last-first, work, take); fl != nil || res.Mode == ModePart {
+	// The first record alone, then the memo: a file that fails there, as a
+	// damaged one mostly does, costs no memo.
+	t, fl := work(0)
+	if fl != nil {
+		return fl
+	} else if take(t); o.Fast != nil && o.Fast.Memo != nil {
+		memo = o.Fast.Memo(p)
+	}
+	if fl := run(last-first-1, func(i int) (*Tally, *Failure) { return work(i + 1) }, take); fl != nil || res.Mode == ModePart {
 		return fl
 	} else if f.end() != nil {
 		return f.end()
