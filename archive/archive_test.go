@@ -33,7 +33,7 @@ const (
 func realCheck(s archive.Subject) (archive.Verdict, error) {
 	var sieveErr error
 	o := check.Options{}
-	o.Sample = s.Sample
+	o.Draw = check.Sample(s.Sample, "")
 	o.Sieve = func(named kernel.Hash) (*kernel.Sieve, *kernel.Failure) {
 		path, err := s.Sieve(named.String())
 		var b []byte

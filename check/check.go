@@ -17,7 +17,10 @@
 //     parallel (rangesearch.go, FuzzSearchAgainstKernel and
 //     FuzzRangeAgainstKernel).
 //
-// descent check -reference runs the kernel alone.
+// The reader's choices that make no claim true or false are this
+// package's too (audit.go): the blocks an audit draws, with its seed, and
+// the records -part names. descent check -reference runs the kernel alone
+// with them.
 package check
 
 import (
@@ -49,7 +52,11 @@ func Check(r io.ReaderAt, size int64, o Options) *kernel.Result {
 // Part checks part of a whole certificate against a published root:
 // "P", the record P, or "i/N", share i of N of the records.
 func Part(r io.ReaderAt, size int64, part string, root kernel.Hash, o Options) *kernel.Result {
-	return kernel.Part(r, size, part, root, o.fast())
+	span, fl := ParsePart(part)
+	if fl != nil {
+		return &kernel.Result{Mode: kernel.ModePart, Failure: fl}
+	}
+	return kernel.Part(r, size, span, root, o.fast())
 }
 
 // RangeSieve checks the sieve certificate in r as the one a range names.

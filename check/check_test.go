@@ -160,3 +160,31 @@ func TestMemoEntriesAreAllKept(t *testing.T) {
 		require.Positive(t, rows)
 	}
 }
+
+func TestAuditDrawDependsOnRootAndSeed(t *testing.T) {
+	// The blocks chosen depend on the root and the seed, and nothing else.
+	root := kernel.Hash{1, 2, 3}
+	require.Equal(t, AuditDraw(root, "a", 64, 5), AuditDraw(root, "a", 64, 5))
+	require.NotEqual(t, AuditDraw(root, "a", 64, 5), AuditDraw(root, "b", 64, 5))
+	require.Len(t, AuditDraw(root, "a", 64, 5), 5)
+	a, err := Sample(5, "reviewer")(root, 64)
+	require.NoError(t, err)
+	require.Equal(t, &kernel.Audit{Blocks: 64, Drawn: AuditDraw(root, "reviewer", 64, 5), Seed: "reviewer", SeedFrom: "reader"}, a)
+	a, err = Sample(64, "")(root, 64)
+	require.NoError(t, err)
+	require.Nil(t, a, "a sample of every block is a full check")
+}
+
+func TestPartThatNamesNothingIsTheReadersMistake(t *testing.T) {
+	b := vector(t, "sieve-3n+1-k4.dcert")
+	rep := Check(bytes.NewReader(b), int64(len(b)), Options{})
+	require.NoError(t, rep.Err())
+	for _, part := range []string{"2", "-1", "x", "0/0", "2/2", "1/3", "1/x", ""} {
+		res := Part(bytes.NewReader(b), int64(len(b)), part, *rep.Root, Options{})
+		require.ErrorIs(t, res.Err(), kernel.ErrUsage, part)
+		require.Equal(t, kernel.ReasonPart, res.Failure.Reason, part)
+		require.NotEmpty(t, res.Failure.Hint, part)
+	}
+	require.NoError(t, Part(bytes.NewReader(b), int64(len(b)), "1", *rep.Root, Options{}).Err())
+	require.NoError(t, Part(bytes.NewReader(b), int64(len(b)), "1/2", *rep.Root, Options{}).Err())
+}

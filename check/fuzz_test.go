@@ -116,7 +116,7 @@ func FuzzRangeAgainstKernel(f *testing.F) {
 	}
 	f.Fuzz(func(t *testing.T, b []byte, sieve uint8) {
 		o := Options{Workers: 2}
-		o.Budget, o.Sample, o.Seed = fuzzBudget, int(sieve/4%3), "fuzz"
+		o.Budget, o.Draw = fuzzBudget, Sample(int(sieve/4%3), "fuzz")
 		withSieve(t, b, o, sieves[int(sieve)%len(ranges)].b)
 	})
 }

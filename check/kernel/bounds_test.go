@@ -20,12 +20,11 @@ func TestPartAllocatesOnlyWhatTheFileHolds(t *testing.T) {
 	offsets := len(b) - 15 - 15 - 8 // the third offset: the end of record 1
 	start := binary.BigEndian.Uint64(b[offsets-8:])
 	binary.BigEndian.PutUint64(b[offsets:], start+1<<30-1)
-	root, err := ParseHash(referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")))
-	require.NoError(t, err)
+	root := hashOf(t, referenceRoot(t, vector(t, "sieve-3n+1-k4.dcert")))
 	var before, after runtime.MemStats
 	runtime.GC()
 	runtime.ReadMemStats(&before)
-	rep := Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
+	rep := Part(bytes.NewReader(b), int64(len(b)), Span{I: 1}, root, Options{})
 	runtime.ReadMemStats(&after)
 	require.ErrorIs(t, rep.Err(), ErrMalformed)
 	require.Contains(t, rep.Err().Error(), "file ends inside the record 1")
@@ -37,7 +36,7 @@ func TestPartAllocatesOnlyWhatTheFileHolds(t *testing.T) {
 	binary.BigEndian.PutUint32(b[10:], 1<<23+1)
 	runtime.GC()
 	runtime.ReadMemStats(&before)
-	rep = Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
+	rep = Part(bytes.NewReader(b), int64(len(b)), Span{I: 1}, root, Options{})
 	runtime.ReadMemStats(&after)
 	require.ErrorIs(t, rep.Err(), ErrMalformed)
 	require.Less(t, after.TotalAlloc-before.TotalAlloc, uint64(1<<20), "allocated %d bytes", after.TotalAlloc-before.TotalAlloc)
@@ -45,15 +44,15 @@ func TestPartAllocatesOnlyWhatTheFileHolds(t *testing.T) {
 
 func TestPartOutOfRangeIsTheReadersMistake(t *testing.T) {
 	b := vector(t, "sieve-3n+1-k4.dcert")
-	root, err := ParseHash(referenceRoot(t, b))
-	require.NoError(t, err)
-	for _, part := range []string{"2", "-1", "x", "0/0", "2/2", "1/3"} {
+	root := hashOf(t, referenceRoot(t, b))
+	// "-part 2", "-1", "2/2", "1/3" (package check reads the flag).
+	for _, part := range []Span{{I: 2}, {I: -1}, {I: 2, N: 2}, {I: 1, N: 3}} {
 		rep := Part(bytes.NewReader(b), int64(len(b)), part, root, Options{})
 		require.ErrorIs(t, rep.Err(), ErrUsage, part)
 		require.Equal(t, ReasonPart, rep.Failure.Reason, part)
 		require.NotEmpty(t, rep.Failure.Hint, part)
 	}
-	rep := Part(bytes.NewReader(b), int64(len(b)), "1", root, Options{})
+	rep := Part(bytes.NewReader(b), int64(len(b)), Span{I: 1}, root, Options{})
 	require.NoError(t, rep.Err())
 }
 
@@ -71,7 +70,7 @@ func TestBudgetRefusesBeforeTheWork(t *testing.T) {
 	require.Equal(t, ReasonLimits, rep.Failure.Reason)
 	require.Contains(t, rep.Err().Error(), "more than the budget of 1048576")
 	// An audit of one block needs less than the whole.
-	o.Sample, o.Seed = 1, "a seed"
+	o.Draw = func(_ Hash, m int) (*Audit, error) { return &Audit{Blocks: m, Drawn: []int{7}}, nil }
 	rep = checkBytes(b, o)
 	require.NoError(t, rep.Err())
 

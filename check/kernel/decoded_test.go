@@ -2,6 +2,7 @@ package kernel
 
 import (
 	"bytes"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
@@ -112,7 +113,10 @@ func Decode(r io.Reader) (*decoded, error) {
 		if _, fl := p.chunk(g, rec, f.Offsets[i], nil, 0, h.Joins, false, nil); fl != nil {
 			return nil, fl
 		}
-		w, begin, start, rest, _ := p.frame(g, rec, f.Offsets[i], h.Joins)
+		// The head, as SPEC.md lays it out: start, first and last depth, code bits.
+		begin, start, nbit := int(rec[8]), binary.BigEndian.Uint64(rec), binary.BigEndian.Uint32(rec[10:])
+		w := &walk{code: rec[chunkHead:], nbit: uint64(nbit), end: int(rec[9])}
+		rest := rec[chunkHead+(nbit+7)/8:]
 		from, to := p.D, p.J
 		if g == 0 {
 			from, to = 0, p.D

@@ -5,23 +5,21 @@
 // and no tables of its own, and imports only the standard library and
 // BLAKE2b. Package check plugs fast paths into it (Options.Fast); the
 // kernel decides every verdict, and takes a fast path's table entry only
-// after walking it itself.
+// after walking it itself. Wording beyond a failure's reason and place,
+// the audit draw and the reading of -part are the caller's.
 //
 //	failure.go  the classes of failure and the reasons (SPEC.md, section 3)
-//	file.go     the container read at offsets within bounds; the Merkle tree,
-//	            audit paths and the audit draw (sections 2, 3 steps 1-4, 6, 7)
-//	header.go   the header bodies and block records, with their value rules
+//	file.go     the container at offsets within bounds, the Merkle tree
+//	            and audit paths (sections 2, 3 steps 1-4, 7, 8)
+//	header.go   the header bodies and block records with their value rules
 //	            (sections 2, 6, 7)
-//	sieve.go    a map's arithmetic; the walk of the trie class by class; the
-//	            stubs and counts by the map alone; memo entries verified
-//	            (sections 1, 2, 3 step 7, 7)
-//	chunk.go    the chunk records: framing, decoding and judging, joins (2, 8)
-//	fate.go     the exception and small bounds, exceptions, fates, the work
-//	            bound, predecessor rules (sections 1, 4, 6, 9)
-//	range.go    the sieve a range rests on, its blocks derived number by
-//	            number, their totals and comparison (section 6)
-//	jump.go     entries of a range search's table of several steps at
-//	            once, re-derived step by step (section 1)
-//	check.go    the order of a check: whole, share, shard, part; the sieve
-//	            of a range (sections 3, 7)
+//	sieve.go    a map's arithmetic; the trie walked class by class; stubs
+//	            and counts by the map alone; memo entries verified; chunk
+//	            records and joins (sections 1, 2, 3 step 7, 7, 8)
+//	fate.go     fates, exceptions, bounds, work, predecessor rules
+//	            (sections 1, 4, 6, 9)
+//	range.go    a range's blocks derived number by number; totals (6)
+//	jump.go     a range search's jump entries re-derived (section 1)
+//	check.go    the order of a check, one path for whole, share, shard and
+//	            part; the sieve of a range (sections 3, 7)
 package kernel

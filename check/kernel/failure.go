@@ -49,12 +49,15 @@ func LookupReason(code string) (Reason, bool) {
 	return Reason{}, false
 }
 
-// Failure is the first thing found wrong, with where it was found.
+// Failure is the first thing found wrong, with where it was found. For a
+// block or totals unlike their re-derivation, Derived and Stated hold
+// both, for the reader to name the fields that differ (cmd/descent does).
 type Failure struct {
-	Class       error // ErrMalformed, ErrInvalid, ErrLimits or ErrUsage
-	Reason, Msg string
-	Hint        string // for the reader's own mistakes: what to do instead
-	Where       Where
+	Class           error // ErrMalformed, ErrInvalid, ErrLimits or ErrUsage
+	Reason, Msg     string
+	Hint            string // for the reader's own mistakes: what to do instead
+	Where           Where
+	Derived, Stated *Block
 }
 
 // Where locates a failure; zero fields are unknown or do not apply.
@@ -100,4 +103,4 @@ func usage(reason, hint, format string, args ...any) *Failure {
 	return &Failure{Class: ErrUsage, Reason: reason, Hint: hint, Msg: fmt.Sprintf(format, args...)}
 }
 
-func chunkAt(i int) *int { return &i }
+func at(i int) *int { return &i }

@@ -7,9 +7,8 @@ import (
 	"sync/atomic"
 )
 
-// Exceptions and fates (SPEC.md, section 1), the work they may take
-// (section 4), the small bound of a range (section 6) and predecessor
-// rules (section 9), all in math/big.
+// Fates and exceptions (SPEC.md, section 1), work (section 4), the small
+// bound (section 6) and predecessor rules (section 9), in math/big.
 
 // apply sets x to T(x) and says whether the step was odd.
 func (p *Params) apply(x *big.Int) bool {
@@ -19,10 +18,6 @@ func (p *Params) apply(x *big.Int) bool {
 	}
 	x.Mul(x, big.NewInt(int64(p.A))).Add(x, big.NewInt(int64(p.B))).Rsh(x, 1)
 	return true
-}
-
-func (p *Params) pow(s int) *big.Int {
-	return new(big.Int).Exp(big.NewInt(int64(p.A)), big.NewInt(int64(s)), nil)
 }
 
 // bound is the exception bound of section 1 ("Bound on exceptions") for
@@ -49,32 +44,14 @@ func (p *Params) bound(small bool) *big.Int {
 	return limit
 }
 
-// SmallBound is N0 of a range on a sieve of this j = k (section 6): above
-// it the sieve rule and the jump of a search are exact.
-func (p *Params) SmallBound() *big.Int { return p.bound(true) }
-
-// isException follows n until its class closes (or j steps pass) and says
-// whether n is at or below its class's threshold: T^t(n) >= n.
-func (p *Params) isException(n *big.Int) (bool, int) {
-	x, s := new(big.Int).Set(n), 0
-	for t := 1; t <= p.J; t++ {
-		if p.apply(x) {
-			s++
-		}
-		if p.Closes(t, s) {
-			return x.Cmp(n) >= 0, t
-		}
-	}
-	return false, 0
-}
-
 // Meter counts the steps of T a derivation may still take; a nil Meter
 // allows any number. It is safe for concurrent use.
 type Meter struct{ left atomic.Int64 }
 
 func NewMeter(steps *big.Int) *Meter {
 	m := &Meter{}
-	if m.left.Store(math.MaxInt64); steps.IsInt64() {
+	m.left.Store(math.MaxInt64)
+	if steps.IsInt64() {
 		m.left.Store(steps.Int64())
 	}
 	return m
@@ -92,16 +69,14 @@ func (m *Meter) Exceeded() bool { return m != nil && m.left.Load() < 0 }
 // x_C lies on the cycle. Every step is charged to m; a meter that runs out
 // stops it, undecided.
 func (p *Params) Fate(n *big.Int, C uint32, W int, m *Meter) Fate {
-	x := new(big.Int).Set(n)
+	x, undecided := new(big.Int).Set(n), Fate{N: n, Kind: Undecided}
 	for i := uint32(1); i <= C; i++ {
 		if p.apply(x); !m.Charge(1) {
-			return Fate{N: n, Kind: Undecided}
-		}
-		if x.Cmp(n) < 0 {
+			return undecided
+		} else if x.Cmp(n) < 0 {
 			return Fate{N: n, Kind: Descends, Steps: i}
-		}
-		if x.BitLen() > W {
-			return Fate{N: n, Kind: Undecided}
+		} else if x.BitLen() > W {
+			return undecided
 		}
 	}
 	y := new(big.Int).Set(n)
@@ -110,19 +85,18 @@ func (p *Params) Fate(n *big.Int, C uint32, W int, m *Meter) Fate {
 			least := new(big.Int).Set(x)
 			for p.apply(y); y.Cmp(x) != 0; p.apply(y) {
 				if !m.Charge(1) {
-					return Fate{N: n, Kind: Undecided}
-				}
-				if y.Cmp(least) < 0 {
+					return undecided
+				} else if y.Cmp(least) < 0 {
 					least.Set(y)
 				}
 			}
 			return Fate{N: n, Kind: Cycle, CycleMin: least}
 		}
 		if p.apply(y); !m.Charge(1) {
-			return Fate{N: n, Kind: Undecided}
+			return undecided
 		}
 	}
-	return Fate{N: n, Kind: Undecided}
+	return undecided
 }
 
 func (e Fate) String() string {
@@ -130,51 +104,59 @@ func (e Fate) String() string {
 	case Descends:
 		return fmt.Sprintf("descends after %d steps", e.Steps)
 	case Cycle:
-		if e.CycleMin.Cmp(e.N) == 0 {
-			return "lies on a cycle, as its smallest member"
-		}
 		return fmt.Sprintf("reaches the cycle whose smallest member is %v", e.CycleMin)
 	}
 	return "undecided within the cap"
 }
 
-// exceptions finds every exception afresh and compares the header's list
-// with it, entry by entry in increasing order (section 3, step 10). The
-// work bound, checked before, keeps the bound within int64.
+// exceptions finds every exception afresh up to the bound (n whose class
+// closes at step t with T^t(n) >= n) and compares the header's list with
+// them in increasing order, fates included (section 3, step 10). The work
+// bound, checked before, keeps the bound within int64.
 func (p *Params) exceptions(h *SieveHeader) *Failure {
 	limit, listed := p.bound(false), h.Exceptions
-	fail := func(n *big.Int, expected, found, format string, args ...any) *Failure {
-		return invalid(ReasonException, Where{N: n.String(), Claim: "exception", Expected: expected, Found: found}, format, args...)
+	fail := func(n *big.Int, format string, args ...any) *Failure {
+		return invalid(ReasonException, Where{N: n.String(), Claim: "exception"}, format, args...)
 	}
 	for n := int64(1); n <= limit.Int64(); n++ {
-		bn := big.NewInt(n)
-		is, t := p.isException(bn)
-		inList := len(listed) > 0 && listed[0].N.Cmp(bn) == 0
-		switch {
-		case is && !inList:
-			return fail(bn, "listed", "missing", "n = %d is an exception (its class closes at step %d and T^%d(n) >= n) but is not listed", n, t, t)
-		case !is && inList:
-			why := fmt.Sprintf("its class does not close within %d steps (a survivor)", p.J)
-			if t > 0 {
-				why = fmt.Sprintf("its class closes at step %d and T^%d(n) < n", t, t)
+		bn, x, is, t := big.NewInt(n), big.NewInt(n), false, 0
+		for s := 0; t < p.J && !p.Closes(t, s); {
+			if t++; p.apply(x) {
+				s++
 			}
-			return fail(bn, "not an exception", "listed", "n = %d is listed as an exception but is none: %s", n, why)
-		case is:
-			if got := p.Fate(bn, h.Cap, h.Ceiling, nil); !got.same(listed[0]) {
-				return fail(bn, got.String(), listed[0].String(), "n = %d %s, not as listed: %s", n, got, listed[0])
+			if p.Closes(t, s) {
+				is = x.Cmp(bn) >= 0
+			}
+		}
+		inList := len(listed) > 0 && listed[0].N.Cmp(bn) == 0
+		if is && !inList {
+			return fail(bn, "n = %d is an exception (its class closes at step %d and T^%d(n) >= n) but is not listed", n, t, t)
+		} else if !is && inList {
+			return fail(bn, "n = %d is listed as an exception but is none: its class does not close within %d steps, or T^t(n) < n at the step t where it closes", n, p.J)
+		} else if is {
+			e, l := p.Fate(bn, h.Cap, h.Ceiling, nil), listed[0]
+			if e.Kind != l.Kind || e.Steps != l.Steps || e.Kind == Cycle && e.CycleMin.Cmp(l.CycleMin) != 0 {
+				return fail(bn, "n = %d %s, not as listed: %s", n, e, l)
 			}
 			listed = listed[1:]
 		}
 	}
 	if len(listed) > 0 {
-		return fail(listed[0].N, "not an exception", "listed", "%v is listed as an exception, but every exception is at most %v", listed[0].N, limit)
+		return fail(listed[0].N, "%v is listed as an exception, but every exception is at most %v", listed[0].N, limit)
 	}
 	return nil
 }
 
-// DefaultBudget is the budget when none is given: 2^48 steps, some days
-// of one core at most.
+// DefaultBudget is the budget when none is given: 2^48 steps, some days of
+// one core at most.
 const DefaultBudget = 1 << 48
+
+func budget(o Options) *big.Int {
+	if o.Budget > 0 {
+		return new(big.Int).SetUint64(o.Budget)
+	}
+	return big.NewInt(DefaultBudget)
+}
 
 func overBudget(what string, bound, budget *big.Int) *Failure {
 	return &Failure{Class: ErrLimits, Reason: ReasonLimits, Hint: "raise the budget with -budget N if the work is wanted",
@@ -184,8 +166,7 @@ func overBudget(what string, bound, budget *big.Int) *Failure {
 // sieveWork is the work bound of a sieve, E*j + 3*C*X (section 4).
 func (p *Params) sieveWork(h *SieveHeader, budget *big.Int) *Failure {
 	w := new(big.Int).Mul(p.bound(false), big.NewInt(int64(p.J)))
-	w.Add(w, new(big.Int).SetUint64(3*uint64(h.Cap)*uint64(len(h.Exceptions))))
-	if w.Cmp(budget) > 0 {
+	if w.Add(w, new(big.Int).SetUint64(3*uint64(h.Cap)*uint64(len(h.Exceptions)))); w.Cmp(budget) > 0 {
 		return overBudget(fmt.Sprintf("the exceptions of %s with j = %d (%d listed, cap %d)", p.Map, p.J, len(h.Exceptions), h.Cap), w, budget)
 	}
 	return nil
@@ -213,27 +194,23 @@ func (h *RangeHeader) blockWork(i int, s *Summary) (total, steps *big.Int) {
 func (h *RangeHeader) proveRules() *Failure {
 	a, b := big.NewInt(int64(h.A)), big.NewInt(int64(h.B))
 	for i, r := range h.Rules {
-		where := Where{Claim: fmt.Sprintf("rule %d: %v", i, r)}
+		where := Where{Claim: fmt.Sprintf("rule %d: %d*q+%d <- %d*q+%d in %d steps", i, r.M, r.C, r.Mp, r.Cp, r.Steps)}
 		if r.Mp > r.M || r.Cp >= r.C || r.Cp < 1 || r.Mp < 1 {
-			where.Expected, where.Found = "a predecessor below n for every q >= 0", fmt.Sprintf("M' = %d, c' = %d against M = %d, c = %d", r.Mp, r.Cp, r.M, r.C)
-			return invalid(ReasonRule, where, "rule %d (%v): the predecessor must be positive and smaller for every q >= 0, which needs M' <= M, 1 <= c' < c", i, r)
+			return invalid(ReasonRule, where, "rule %d: the predecessor must be positive and smaller for every q >= 0, which needs 1 <= M' <= M, 1 <= c' < c", i)
 		}
 		A, B := new(big.Int).SetUint64(r.Mp), new(big.Int).SetUint64(r.Cp)
 		for t := 1; t <= r.Steps; t++ {
 			if A.Bit(0) == 1 {
-				where.Step, where.Expected, where.Found = t, "a parity fixed by the class", fmt.Sprintf("%v*q + %v", A, B)
-				return invalid(ReasonRule, where, "rule %d (%v): before step %d the predecessor's value is %v*q + %v, whose parity depends on q", i, r, t, A, B)
-			}
-			if B.Bit(0) == 1 {
+				return invalid(ReasonRule, where, "rule %d: before step %d the predecessor's value is %v*q + %v, whose parity depends on q", i, t, A, B)
+			} else if B.Bit(0) == 1 {
 				A.Mul(A, a)
 				B.Mul(B, a).Add(B, b)
 			}
 			A.Rsh(A, 1)
 			B.Rsh(B, 1)
 		}
-		if M, C := new(big.Int).SetUint64(r.M), new(big.Int).SetUint64(r.C); A.Cmp(M) != 0 || B.Cmp(C) != 0 {
-			where.Expected, where.Found = fmt.Sprintf("%v*q + %v", M, C), fmt.Sprintf("%v*q + %v", A, B)
-			return invalid(ReasonRule, where, "rule %d (%v): after %d steps the predecessor is %v*q + %v, not %v*q + %v", i, r, r.Steps, A, B, M, C)
+		if A.Cmp(new(big.Int).SetUint64(r.M)) != 0 || B.Cmp(new(big.Int).SetUint64(r.C)) != 0 {
+			return invalid(ReasonRule, where, "rule %d: after %d steps the predecessor is %v*q + %v, not %d*q + %d", i, r.Steps, A, B, r.M, r.C)
 		}
 	}
 	return nil

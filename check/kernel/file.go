@@ -15,12 +15,7 @@ import (
 
 // Caps of the format (SPEC.md, section 4): each bounds a loop or an
 // allocation that the input steers.
-const (
-	preambleLen  = 18
-	maxBody      = 1 << 20
-	maxRecords   = 1 << 24
-	maxRecordLen = 1 << 30
-)
+const preambleLen, maxBody, maxRecords, maxRecordLen = 18, 1 << 20, 1 << 24, 1 << 30
 
 // Hash is a BLAKE2b-256 hash: a leaf, an inner node or a root.
 type Hash [32]byte
@@ -29,26 +24,13 @@ func (h Hash) String() string { return hex.EncodeToString(h[:]) }
 
 func (h Hash) short() string { return hex.EncodeToString(h[:8]) + "…" }
 
-// ParseHash reads a hash in hex, as roots are published.
-func ParseHash(s string) (Hash, error) {
-	var h Hash
-	b, err := hex.DecodeString(s)
-	if err != nil || len(b) != len(h) {
-		return h, fmt.Errorf("root %q: want %d hex digits", s, 2*len(h))
-	}
-	copy(h[:], b)
-	return h, nil
-}
-
 // LeafHash and nodeHash have different first bytes, so that no record can
 // pass for an inner node (SPEC.md, "Hashes").
-func LeafHash(b []byte) Hash {
+func LeafHash(b []byte) (h Hash) {
 	d, _ := blake2b.New256(nil)
 	d.Write([]byte{0})
 	d.Write(b)
-	var h Hash
-	d.Sum(h[:0])
-	return h
+	return Hash(d.Sum(nil))
 }
 
 func nodeHash(l, r Hash) Hash { return blake2b.Sum256(append(append([]byte{1}, l[:]...), r[:]...)) }
@@ -65,7 +47,9 @@ func levelSizes(n int) []int {
 }
 
 // File is a certificate opened for reading at offsets: its header, and,
-// once read, its stored tree and record offsets.
+// once read, its stored tree and record offsets. In a part check (root
+// set) neither is read: each record is read with its own two offsets and
+// its audit path to the given root.
 type File struct {
 	Kind    byte // 's', 'j', 'r' or 'h'
 	Records int
@@ -78,11 +62,11 @@ type File struct {
 	read    atomic.Int64 // the bytes read so far
 	src     io.ReaderAt
 	size    int64
+	root    *Hash // a part check: the given root
 }
 
-// readAt reads n bytes at off. It allocates only once they are known to
-// lie in the file, so that no length the input states is allocated ahead
-// of the bytes.
+// readAt reads n bytes at off, allocating only once they are known to lie
+// in the file: no length the input states is allocated ahead of its bytes.
 func (f *File) readAt(off, n int64, what string) ([]byte, *Failure) {
 	if off < 0 || n < 0 || off > f.size || n > f.size-off {
 		off = min(max(off, 0), f.size)
@@ -109,15 +93,19 @@ func open(r io.ReaderAt, size int64) (*File, *Failure) {
 	case string(pre[:8]) != magic:
 		return f, malformed(0, "not a descent certificate (the first 8 bytes are %q)", pre[:8])
 	case pre[8] != version:
-		return f, versionFailure(pre[8])
+		fl = malformed(8, "unknown format version %d; this checker reads version %d", pre[8], version)
+		if fl.Reason = ReasonVersion; pre[8] < version {
+			fl.Msg = fmt.Sprintf("format version %d is an older format that this checker no longer reads (it reads version %d)", pre[8], version)
+			fl.Hint = "re-emit the certificate with this version of descent"
+		}
+		return f, fl
 	case pre[9] != kindSieve && pre[9] != kindJoins && pre[9] != kindRange && pre[9] != kindShard:
 		return f, malformed(9, "unknown certificate kind %q", pre[9])
 	}
 	records, bodyLen := binary.BigEndian.Uint32(pre[10:]), binary.BigEndian.Uint32(pre[14:])
 	if records < 1 || records > maxRecords {
 		return f, malformed(10, "the preamble declares %d records; the format allows 1 to %d", records, maxRecords)
-	}
-	if bodyLen > maxBody {
+	} else if bodyLen > maxBody {
 		return f, malformed(14, "header body of %d bytes is over the cap of %d", bodyLen, maxBody)
 	}
 	body, fl := f.readAt(preambleLen, int64(bodyLen), "header")
@@ -133,16 +121,14 @@ func open(r io.ReaderAt, size int64) (*File, *Failure) {
 	case kindRange:
 		f.Range, fl = parseRangeHeader(body, f.Records)
 	default:
-		if f.Sieve, fl = parseSieveHeader(body, f.Kind == kindJoins); fl == nil {
-			fl = f.Sieve.sane(f.Records)
-		}
+		f.Sieve, fl = parseSieveHeader(body, f.Kind == kindJoins, f.Records)
 	}
 	return f, fl
 }
 
-// treeLen is the bytes of the stored tree.
-func (f *File) treeLen() int64 {
-	n := int64(0)
+// index is the offset of the record offsets, after the stored tree.
+func (f *File) index() int64 {
+	n := int64(len(f.Header))
 	for _, s := range levelSizes(f.Records + 1) {
 		n += int64(s) * 32
 	}
@@ -168,13 +154,11 @@ func (f *File) readIndex() *Failure {
 	if fl != nil {
 		return fl
 	}
-	start := off + int64(len(b))
 	for i := 0; i <= f.Records; i++ {
 		o, at := int64(binary.BigEndian.Uint64(b[8*i:])), off+8*int64(i)
-		if i == 0 && o != start {
-			return malformed(at, "the first record is said to start at %d; it starts at %d", o, start)
-		}
-		if i > 0 && (o <= f.Offsets[i-1] || o-f.Offsets[i-1] > maxRecordLen) {
+		if i == 0 && o != off+int64(len(b)) {
+			return malformed(at, "the first record is said to start at %d; it starts at %d", o, off+int64(len(b)))
+		} else if i > 0 && (o <= f.Offsets[i-1] || o-f.Offsets[i-1] > maxRecordLen) {
 			return malformed(at, "record %d would span offsets %d to %d", i-1, f.Offsets[i-1], o)
 		}
 		f.Offsets = append(f.Offsets, o)
@@ -192,10 +176,10 @@ func (f *File) verify() *Failure {
 		for i, stored := range f.Tree[l] {
 			want := below[2*i]
 			if 2*i+1 < len(below) {
-				want = nodeHash(below[2*i], below[2*i+1])
+				want = nodeHash(want, below[2*i+1])
 			}
 			if stored != want {
-				return invalid(ReasonTree, Where{}, "stored tree level %d, hash %d is %s; its children give %s", l, i, stored.short(), want.short())
+				return invalid(ReasonTree, Where{}, "stored tree level %d, hash %d is not the hash of its children", l, i)
 			}
 		}
 	}
@@ -216,19 +200,40 @@ func (f *File) BytesRead() int64 { return f.read.Load() }
 // Root is the stored root.
 func (f *File) Root() Hash { return f.Tree[len(f.Tree)-1][0] }
 
-// record reads record i and compares its hash with leaf i+1 (step 7).
-func (f *File) record(i int) ([]byte, *Failure) {
-	rec, fl := f.readAt(f.Offsets[i], f.Offsets[i+1]-f.Offsets[i], fmt.Sprintf("record %d", i))
+// record reads record i with its offset (step 7), against the stored tree,
+// or in a part check through its audit path against the given root.
+func (f *File) record(i int) ([]byte, int64, *Failure) {
+	var a, e int64
+	if f.root == nil {
+		a, e = f.Offsets[i], f.Offsets[i+1]
+	} else if b, fl := f.readAt(f.index()+8*int64(i), 16, "record offsets"); fl != nil {
+		return nil, 0, fl
+	} else {
+		a, e = int64(binary.BigEndian.Uint64(b)), int64(binary.BigEndian.Uint64(b[8:]))
+	}
+	rec, fl := f.readAt(a, e-a, fmt.Sprintf("record %d", i))
 	if fl != nil {
-		return nil, fl
+		return nil, a, fl
 	}
-	if got, want := LeafHash(rec), f.Tree[0][i+1]; got != want && f.Range != nil {
-		return nil, invalid(ReasonHash, Where{Chunk: chunkAt(i), Offset: &f.Offsets[i]}, "block %d hashes to %s; the stored tree says %s", i, got.short(), want.short())
-	} else if got != want {
-		return nil, invalid(ReasonHash, Where{Chunk: chunkAt(i), Offset: &f.Offsets[i], Expected: want.short(), Found: got.short()},
-			"the chunk hashes to %s; the stored tree says %s", got.short(), want.short())
+	unit, got := "the chunk", LeafHash(rec)
+	if f.Range != nil {
+		unit = fmt.Sprintf("block %d", i)
 	}
-	return rec, nil
+	if f.root == nil && got != f.Tree[0][i+1] {
+		return nil, a, invalid(ReasonHash, Where{Chunk: at(i), Offset: &a, Expected: f.Tree[0][i+1].short(), Found: got.short()},
+			"%s hashes to %s; the stored tree says %s", unit, got.short(), f.Tree[0][i+1].short())
+	}
+	if f.root != nil {
+		ok, fl := f.proves(got, i+1)
+		if fl == nil && !ok {
+			fl = invalid(ReasonAudit, Where{Chunk: at(i), Offset: &a, Expected: f.root.String()},
+				"record %d with its audit path does not lead to the root %s: a swapped record, one from another certificate, or an altered tree", i, f.root)
+		}
+		if fl != nil {
+			return nil, a, fl
+		}
+	}
+	return rec, a, nil
 }
 
 // end checks that no byte follows the last record (step 8).
@@ -239,10 +244,9 @@ func (f *File) end() *Failure {
 	return nil
 }
 
-// proves says whether leaf i, hashed up its audit path (one stored
-// sibling per level where one exists), leads to root. It reads only
-// those siblings (SPEC.md, section 7).
-func (f *File) proves(leaf Hash, i int, root Hash) (bool, *Failure) {
+// proves says whether leaf i, hashed up its audit path (a stored sibling
+// per level where one exists, read alone), leads to the root (section 7).
+func (f *File) proves(leaf Hash, i int) (bool, *Failure) {
 	at := int64(len(f.Header))
 	sizes := levelSizes(f.Records + 1)
 	for l := 0; l+1 < len(sizes); l++ {
@@ -260,22 +264,5 @@ func (f *File) proves(leaf Hash, i int, root Hash) (bool, *Failure) {
 		at += 32 * int64(sizes[l])
 		i /= 2
 	}
-	return leaf == root, nil
-}
-
-// AuditDraw draws n distinct blocks of m (SPEC.md, section 6, "Audits"):
-// with key = BLAKE2b-256("descent audit" 00 || root || seed), the c-th
-// candidate is the first 8 bytes of BLAKE2b-256(key || c), big-endian,
-// mod m, for c = 0, 1, 2, ...; repeats are skipped.
-func AuditDraw(root Hash, seed string, m, n int) []int {
-	key := blake2b.Sum256(append(append([]byte("descent audit\x00"), root[:]...), seed...))
-	seen := map[int]bool{}
-	var out []int
-	for c := uint64(0); len(out) < min(n, m); c++ {
-		h := blake2b.Sum256(binary.BigEndian.AppendUint64(key[:], c))
-		if i := int(binary.BigEndian.Uint64(h[:8]) % uint64(m)); !seen[i] {
-			seen[i], out = true, append(out, i)
-		}
-	}
-	return out
+	return leaf == *f.root, nil
 }

@@ -24,6 +24,13 @@ func vector(t testing.TB, name string) []byte {
 
 var valid = []string{"sieve-3n+1-k4.dcert", "sieve-3n+1-k10.dcert", "sieve-5n+1-k16.dcert", "sieve-3n-1-k12.dcert"}
 
+func hashOf(t testing.TB, s string) Hash {
+	b, err := hex.DecodeString(s)
+	require.NoError(t, err)
+	require.Len(t, b, 32)
+	return Hash(b)
+}
+
 // checkBytes runs the kernel on a certificate in memory.
 func checkBytes(b []byte, o Options) *Result { return Check(bytes.NewReader(b), int64(len(b)), o) }
 
@@ -92,8 +99,7 @@ func TestWorkedExampleRoot(t *testing.T) {
 	require.EqualValues(t, 3, rep.File.Sieve.Survivors)
 	require.Equal(t, []uint64{1, 1, 0, 1}, rep.File.Sieve.ClosedAt)
 
-	root, err := ParseHash(rep.Root.String())
-	require.NoError(t, err)
+	root := hashOf(t, rep.Root.String())
 	require.NoError(t, checkBytes(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root}).Err())
 	root[0] ^= 1
 	rep = checkBytes(vector(t, "sieve-3n+1-k4.dcert"), Options{Root: &root})

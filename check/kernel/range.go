@@ -1,12 +1,9 @@
 package kernel
 
 import (
-	"fmt"
 	"math/big"
 	"math/bits"
 	"slices"
-	"sort"
-	"strconv"
 	"sync"
 )
 
@@ -18,7 +15,7 @@ import (
 type Sieve struct {
 	Root   Hash
 	Header *SieveHeader
-	chunks [][]uint64 // the joined survivors' residues, chunk by chunk from chunk 1, in the order of the codes
+	chunks [][]uint64 // the joined survivors' residues, chunk by chunk, in the order of the codes
 	once   sync.Once
 	joined []uint64 // all of them, increasing: made on the first Joined
 }
@@ -40,8 +37,8 @@ func (s *Sieve) Joined(r uint64) bool {
 // (in chunk i+1) in the order of the codes, which is the order in which a
 // walk of the trie below the stub meets them.
 func (s *Sieve) JoinedBelow(i int) []uint64 {
-	if i < len(s.chunks) {
-		return s.chunks[i]
+	if i+1 < len(s.chunks) {
+		return s.chunks[i+1]
 	}
 	return nil
 }
@@ -55,90 +52,87 @@ type Range struct {
 	N0    *big.Int
 }
 
-// Derive re-derives block i in the plainest way: every number in
-// increasing order, by the first justification that applies (section 6),
-// the fate rule of section 1 from the number itself. Every step of a fate
-// is charged to m; it stops once m runs out or the block has more
-// undecided numbers than a record may list.
+// Derive re-derives block i in the plainest way: each number in turn, by
+// the first justification that applies (section 6), else the fate rule
+// from the number itself, charging m every step; it stops once m runs out
+// or the block has more undecided numbers than a record may list.
 func (r *Range) Derive(i int, m *Meter) *Block {
-	h, p := r.H, r.P
+	h, p, one := r.H, r.P, big.NewInt(1)
 	n, hi := h.Bounds(i)
 	low := new(big.Int).And(n, new(big.Int).SetUint64(1<<64-1)).Uint64() // n mod 2^64: its first 64 parities
-	var counts [6]uint64
-	rules := make([]uint64, len(h.Rules))
-	var sumHi, sumLo uint64
-	b := &Block{Index: uint32(i)}
-	cycles := map[string]*CycleCount{}
-	drop := func(n *big.Int, sigma uint32, c int) {
-		counts[c]++
+	b := &Block{Index: uint32(i), Summary: newSummary(len(h.Rules))}
+	s, counts, rules, sumHi, sumLo := &b.Summary, [6]uint64{}, make([]uint64, len(h.Rules)), uint64(0), uint64(0)
+	drop := func(c int, t uint32) { // machine words here: this loop is the reference check's time
 		var carry uint64
-		sumLo, carry = bits.Add64(sumLo, uint64(sigma), 0)
-		sumHi += carry
-		if sigma > b.Summary.MaxSigma { // n increases: a new maximum is a record
-			b.Summary.MaxSigma, b.Summary.MaxAt = sigma, new(big.Int).Set(n)
-			b.Summary.Records = append(b.Summary.Records, Point{b.Summary.MaxAt, sigma})
+		counts[c]++
+		sumLo, carry = bits.Add64(sumLo, uint64(t), 0)
+		if sumHi += carry; t > s.MaxSigma { // n increases: a new maximum is a record
+			s.MaxSigma, s.MaxAt = t, new(big.Int).Set(n)
+			s.Records = append(s.Records, Point{s.MaxAt, t})
 		}
 	}
-	fate := func(n *big.Int, c int) {
+	for ; n.Cmp(hi) < 0 && !m.Exceeded() && len(b.Undecided) <= MaxList; n.Add(n, one) {
+		x, c := low, CSmall
+		if low++; n.Cmp(r.N0) > 0 {
+			c = CSearch
+			// The class of n: the first t steps with s odd ones such that
+			// a^s < 2^t; then T^t(n) < n and t is the stopping time of n > N0.
+			closed := 0
+			for t, v, odd := 1, x, 0; t <= h.K && closed == 0; t++ {
+				if v, odd = p.Step(v, odd); p.Closes(t, odd) {
+					closed = t
+				}
+			}
+			if closed > 0 {
+				drop(CSieve, uint32(closed))
+				continue
+			} else if r.Sieve.Joined(x & (1<<h.K - 1)) {
+				counts[CJoin]++
+				continue
+			} else if rule := h.RuleFor(n); rule >= 0 {
+				rules[rule]++
+				continue
+			}
+		}
 		switch e := p.Fate(n, h.Cap, h.Ceiling, m); e.Kind {
 		case Descends:
-			drop(n, e.Steps, c)
+			drop(c, e.Steps)
 		case Cycle:
 			counts[CCycle]++
-			key := e.CycleMin.String()
-			if cycles[key] == nil {
-				cycles[key] = &CycleCount{e.CycleMin, new(big.Int)}
-			}
-			cycles[key].Count.Add(cycles[key].Count, big.NewInt(1))
+			s.Cycles = addCycle(s.Cycles, e.CycleMin, one)
 		default:
 			counts[CUndecided]++
 			b.Undecided = append(b.Undecided, new(big.Int).Set(n))
 		}
 	}
-	for ; n.Cmp(hi) < 0 && !m.Exceeded() && len(b.Undecided) <= MaxList; n.Add(n, big.NewInt(1)) {
-		if n.Cmp(r.N0) <= 0 {
-			fate(n, CSmall)
-			low++
-			continue
-		}
-		// The class of n: the first t steps with s odd ones such that
-		// a^s < 2^t; then T^t(n) < n and t is the stopping time of n > N0.
-		v, s, closed := low, 0, 0
-		for t := 1; t <= h.K && closed == 0; t++ {
-			if v, s = p.Step(v, s); p.Closes(t, s) {
-				closed = t
-			}
-		}
-		switch rule := h.RuleFor(n); {
-		case closed > 0:
-			drop(n, uint32(closed), CSieve)
-		case r.Sieve.Joined(low & (1<<h.K - 1)):
-			counts[CJoin]++
-		case rule >= 0:
-			rules[rule]++
-		default:
-			fate(n, CSearch)
-		}
-		low++
+	all := append(s.Counts[:], s.Rules...)
+	for c, x := range append(counts[:], rules...) {
+		all[c].SetUint64(x)
 	}
-	s := &b.Summary
-	for c, x := range counts {
-		s.Counts[c] = new(big.Int).SetUint64(x)
-	}
-	for _, x := range rules {
-		s.Rules = append(s.Rules, new(big.Int).SetUint64(x))
-	}
-	s.Sum = new(big.Int).Lsh(new(big.Int).SetUint64(sumHi), 64)
-	s.Sum.Add(s.Sum, new(big.Int).SetUint64(sumLo))
-	for _, c := range cycles {
-		s.Cycles = append(s.Cycles, *c)
-	}
-	sortCycles(s.Cycles)
+	s.Sum.Lsh(new(big.Int).SetUint64(sumHi), 64).Add(s.Sum, new(big.Int).SetUint64(sumLo))
 	return b
 }
 
-func sortCycles(cs []CycleCount) {
-	sort.Slice(cs, func(i, j int) bool { return cs[i].Min.Cmp(cs[j].Min) < 0 })
+func newSummary(rules int) Summary {
+	s := Summary{Sum: new(big.Int), Rules: []*big.Int{}}
+	for c := range s.Counts {
+		s.Counts[c] = new(big.Int)
+	}
+	for range rules {
+		s.Rules = append(s.Rules, new(big.Int))
+	}
+	return s
+}
+
+// addCycle adds count numbers that reach the cycle with smallest member
+// least to cs, kept in increasing order of least.
+func addCycle(cs []CycleCount, least, count *big.Int) []CycleCount {
+	i, found := slices.BinarySearchFunc(cs, least, func(c CycleCount, x *big.Int) int { return c.Min.Cmp(x) })
+	if found {
+		cs[i].Count.Add(cs[i].Count, count)
+		return cs
+	}
+	return slices.Insert(cs, i, CycleCount{least, new(big.Int).Set(count)})
 }
 
 // total adds up the summaries of the blocks: counts, sums and cycle
@@ -146,14 +140,7 @@ func sortCycles(cs []CycleCount) {
 // every earlier one, the largest stopping time the first block's that
 // has it (section 6).
 func total(h *RangeHeader, blocks []*Block) *Summary {
-	t := &Summary{Sum: new(big.Int), Rules: []*big.Int{}}
-	for c := range t.Counts {
-		t.Counts[c] = new(big.Int)
-	}
-	for range h.Rules {
-		t.Rules = append(t.Rules, new(big.Int))
-	}
-	cycles := map[string]*CycleCount{}
+	t := newSummary(len(h.Rules))
 	for _, b := range blocks {
 		s := &b.Summary
 		for c, x := range append(s.Counts[:], s.Rules...) {
@@ -163,8 +150,7 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 				t.Rules[c-len(t.Counts)].Add(t.Rules[c-len(t.Counts)], x)
 			}
 		}
-		t.Sum.Add(t.Sum, s.Sum)
-		if s.MaxSigma > t.MaxSigma {
+		if t.Sum.Add(t.Sum, s.Sum); s.MaxSigma > t.MaxSigma {
 			t.MaxSigma, t.MaxAt = s.MaxSigma, s.MaxAt
 		}
 		for _, p := range s.Records {
@@ -173,62 +159,8 @@ func total(h *RangeHeader, blocks []*Block) *Summary {
 			}
 		}
 		for _, c := range s.Cycles {
-			if m := cycles[c.Min.String()]; m != nil {
-				m.Count.Add(m.Count, c.Count)
-			} else {
-				cycles[c.Min.String()] = &CycleCount{c.Min, new(big.Int).Set(c.Count)}
-			}
+			t.Cycles = addCycle(t.Cycles, c.Min, c.Count)
 		}
 	}
-	for _, c := range cycles {
-		t.Cycles = append(t.Cycles, *c)
-	}
-	sortCycles(t.Cycles)
-	return t
-}
-
-// field is one field of a summary or block as text, and how to name it
-// when it differs: "%s: expected %s, found %s".
-type field struct{ name, value string }
-
-// fields lists a summary's fields in the order a difference is named.
-func (s *Summary) fields() []field {
-	var out []field
-	for c, x := range s.Counts {
-		out = append(out, field{countNames[c], x.String()})
-	}
-	out = append(out, field{"rule counts", strconv.Itoa(len(s.Rules))})
-	for i, x := range s.Rules {
-		out = append(out, field{fmt.Sprintf("numbers justified by predecessor rule %d", i), x.String()})
-	}
-	out = append(out, field{"sum of stopping times", s.Sum.String()}, field{"largest stopping time", fmt.Sprintf("%d at %v", s.MaxSigma, s.MaxAt)},
-		field{"records", strconv.Itoa(len(s.Records))})
-	for j, p := range s.Records {
-		out = append(out, field{fmt.Sprintf("record %d", j), fmt.Sprintf("%v (%d steps)", p.N, p.Sigma)})
-	}
-	out = append(out, field{"cycles", strconv.Itoa(len(s.Cycles))})
-	for j, c := range s.Cycles {
-		out = append(out, field{fmt.Sprintf("cycle %d", j), fmt.Sprintf("%v (%v numbers)", c.Min, c.Count)})
-	}
-	return out
-}
-
-// fields lists a block's: its summary's, then its undecided numbers.
-func (b *Block) fields() []field {
-	out := append(b.Summary.fields(), field{"undecided numbers", strconv.Itoa(len(b.Undecided))})
-	for j, n := range b.Undecided {
-		out = append(out, field{fmt.Sprintf("undecided number %d", j), n.String()})
-	}
-	return out
-}
-
-// diff names the first field in which two lists differ, or "". A list's
-// length comes before its entries, so two lists differ first in it.
-func diff(want, got []field) string {
-	for i := range min(len(want), len(got)) {
-		if want[i] != got[i] {
-			return fmt.Sprintf("%s: expected %s, found %s", want[i].name, want[i].value, got[i].value)
-		}
-	}
-	return ""
+	return &t
 }

@@ -48,16 +48,23 @@ func TestRangeNeedsItsSieve(t *testing.T) {
 
 func TestRangeAudit(t *testing.T) {
 	b := vector(t, rangeVector)
-	rep := checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert"), Sample: 5, Seed: "reviewer"})
+	// The draw (package check's) is given the root and the 64 blocks, and
+	// the kernel re-derives the blocks drawn, by index in the file.
+	var gotRoot Hash
+	draw := func(root Hash, m int) (*Audit, error) {
+		gotRoot = root
+		return &Audit{Blocks: m, Drawn: []int{5, m - 1, 0}, Seed: "reviewer", SeedFrom: "reader"}, nil
+	}
+	rep := checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert"), Draw: draw})
 	require.NoError(t, rep.Err())
-	require.Equal(t, &Audit{Blocks: 64, Drawn: rep.Audit.Drawn, Seed: "reviewer", SeedFrom: "reader"}, rep.Audit)
-	require.Len(t, rep.Audit.Drawn, 5)
+	require.Equal(t, &Audit{Blocks: 64, Drawn: []int{5, 63, 0}, Seed: "reviewer", SeedFrom: "reader"}, rep.Audit)
+	require.Equal(t, *rep.Root, gotRoot)
 	require.Equal(t, ModeAudit, rep.Mode)
-
-	// The blocks chosen depend on the root and the seed, and nothing else.
-	root := Hash{1, 2, 3}
-	require.Equal(t, AuditDraw(root, "a", 64, 5), AuditDraw(root, "a", 64, 5))
-	require.NotEqual(t, AuditDraw(root, "a", 64, 5), AuditDraw(root, "b", 64, 5))
+	// A share of a range: the draw is among the share's blocks, named by
+	// index in the file.
+	rep = checkBytes(b, Options{Sieve: sieveOf(t, "sieve-3n+1-k12.dcert"), Draw: draw, Span: &Span{I: 1, N: 2}})
+	require.NoError(t, rep.Err())
+	require.Equal(t, &Audit{Blocks: 32, Drawn: []int{37, 63, 32}, Seed: "reviewer", SeedFrom: "reader"}, rep.Audit)
 }
 
 func TestEveryBitFlipOfARangeIsRejected(t *testing.T) {

@@ -340,7 +340,7 @@ func checkForArchive(s archive.Subject) (archive.Verdict, error) {
 			}
 			sievePath = path
 		}
-		o.Sample = s.Sample // an audit is of a range's blocks
+		o.Draw = check.Sample(s.Sample, "") // an audit is of a range's blocks
 	}
 	chk := newChecker(o, sievePath, false)
 	rep := reportOf(check.Check(s.R, s.Size, chk.o), "")

@@ -47,7 +47,7 @@ func (c *cli) check(args []string) int {
 		// blocks the draw misses (SPEC.md, "Audits").
 		c.errorf("warning: -seed %q: an audit proves something only if the seed was chosen after the root was published, by someone the writer could not predict; without -seed the checker draws one at random", *seed)
 	}
-	o := check.Options{Workers: *workers, Options: kernel.Options{Sample: *sampleN, Seed: *seed}}
+	o := check.Options{Workers: *workers, Options: kernel.Options{Draw: check.Sample(*sampleN, *seed)}}
 	if *budgetFlag != "" {
 		b, err := parseNumber(*budgetFlag)
 		if err != nil || b.Sign() <= 0 || !b.IsUint64() {
@@ -69,7 +69,7 @@ func (c *cli) check(args []string) int {
 		return exitUsage
 	}
 	if *rootHex != "" {
-		root, err := kernel.ParseHash(*rootHex)
+		root, err := parseRoot(*rootHex)
 		if err != nil {
 			c.errorf("check: -root: %v", err)
 			return exitUsage

@@ -76,7 +76,11 @@ func (c *checker) file(path string) *Report {
 func (c *checker) part(path, part string, root kernel.Hash) *Report {
 	return c.run(path, kernel.ModePart, func(r io.ReaderAt, size int64) *kernel.Result {
 		if c.reference {
-			return kernel.Part(r, size, part, root, c.o.Options)
+			span, fl := check.ParsePart(part)
+			if fl != nil {
+				return &kernel.Result{Mode: kernel.ModePart, Failure: fl}
+			}
+			return kernel.Part(r, size, span, root, c.o.Options)
 		}
 		return check.Part(r, size, part, root, c.o)
 	})

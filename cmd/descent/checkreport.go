@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"encoding/hex"
 	"encoding/json"
 	"fmt"
 	"math/big"
@@ -144,8 +145,71 @@ func (r *Report) fail(f *kernel.Failure) *Report {
 	r.Valid, r.failure = false, f
 	r.Reason, r.Error, r.Hint = f.Reason, f.Error(), f.Hint
 	w := Where(f.Where)
+	if f.Derived != nil && f.Stated != nil {
+		if d := diff(blockFields(f.Derived), blockFields(f.Stated)); d != nil {
+			w.Claim, w.Expected, w.Found = w.Claim+": "+d.name, d.want, d.got
+			r.Error += fmt.Sprintf(": %s: expected %s, found %s", d.name, d.want, d.got)
+		}
+	}
 	r.Where = &w
 	return r
+}
+
+// field is one field of a summary or block as text, and how to name it.
+type field struct{ name, value string }
+
+var countNames = [6]string{"numbers justified by the sieve", "numbers justified by a join", "numbers found to drop by search",
+	"small numbers found to drop by direct iteration", "numbers that reach a cycle", "undecided numbers"}
+
+// blockFields lists a block's fields (a header's totals: its summary's) in
+// the order a difference is named: a list's length before its entries, so
+// that two lists differ first in it.
+func blockFields(b *kernel.Block) []field {
+	var out []field
+	s := &b.Summary
+	for c, x := range s.Counts {
+		out = append(out, field{countNames[c], x.String()})
+	}
+	out = append(out, field{"rule counts", strconv.Itoa(len(s.Rules))})
+	for i, x := range s.Rules {
+		out = append(out, field{fmt.Sprintf("numbers justified by predecessor rule %d", i), x.String()})
+	}
+	out = append(out, field{"sum of stopping times", s.Sum.String()}, field{"largest stopping time", fmt.Sprintf("%d at %v", s.MaxSigma, s.MaxAt)},
+		field{"records", strconv.Itoa(len(s.Records))})
+	for j, p := range s.Records {
+		out = append(out, field{fmt.Sprintf("record %d", j), fmt.Sprintf("%v (%d steps)", p.N, p.Sigma)})
+	}
+	out = append(out, field{"cycles", strconv.Itoa(len(s.Cycles))})
+	for j, c := range s.Cycles {
+		out = append(out, field{fmt.Sprintf("cycle %d", j), fmt.Sprintf("%v (%v numbers)", c.Min, c.Count)})
+	}
+	out = append(out, field{"undecided numbers", strconv.Itoa(len(b.Undecided))})
+	for j, n := range b.Undecided {
+		out = append(out, field{fmt.Sprintf("undecided number %d", j), n.String()})
+	}
+	return out
+}
+
+type difference struct{ name, want, got string }
+
+// diff names the first field in which two lists differ, or nil.
+func diff(want, got []field) *difference {
+	for i := range min(len(want), len(got)) {
+		if want[i] != got[i] {
+			return &difference{want[i].name, want[i].value, got[i].value}
+		}
+	}
+	return nil
+}
+
+// parseRoot reads a root in hex, as roots are published.
+func parseRoot(s string) (kernel.Hash, error) {
+	var h kernel.Hash
+	b, err := hex.DecodeString(s)
+	if err != nil || len(b) != len(h) {
+		return h, fmt.Errorf("root %q: want %d hex digits", s, 2*len(h))
+	}
+	return kernel.Hash(b), nil
 }
 
 // RangeCounts says how the numbers of a range are justified.

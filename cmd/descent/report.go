@@ -61,7 +61,7 @@ func (c *cli) report(ctx context.Context, args []string) int {
 		return exitUsage
 	}
 
-	chk := newChecker(check.Options{Workers: *workers, Options: kernel.Options{Sample: *sampleN, Seed: *seed}}, *sieve, false)
+	chk := newChecker(check.Options{Workers: *workers, Options: kernel.Options{Draw: check.Sample(*sampleN, *seed)}}, *sieve, false)
 	page := &report.Page{
 		Title: "descent report",
 		Intro: []string{"Each certificate below was checked by descent's independent checker before this page was written. " +
