@@ -8,6 +8,7 @@ import (
 	"math/bits"
 	"runtime"
 	"sort"
+	"sync"
 
 	"golang.org/x/sync/errgroup"
 
@@ -47,6 +48,9 @@ type RangeOptions struct {
 	// header with totals zero (merge adds them up). Done then counts from
 	// the shard's first block.
 	Shard *Shard
+	// slow turns off the window search and the rule masks (tests compare
+	// the certificates written with and without them).
+	slow bool
 }
 
 // RangeResult describes a written range certificate.
@@ -139,6 +143,7 @@ type ranger struct {
 	// joined[i]: for a sieve with joins, bit x says whether survivor x
 	// below stub i (in the order of the codes) is joined.
 	joined [][]uint64
+	masks  *ruleMasks // nil: rules are tested member by member
 }
 
 // Range searches [Lo, Hi) and writes the range certificate to w.
@@ -152,9 +157,15 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	}
 	r.work = newMeter(ctx)
 	r.ceiling = p.Ceiling
+	if o.slow {
+		r.win = nil
+	}
 	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
 	for _, rule := range p.Rules {
 		g.inc = append(g.inc, new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(r.k)), new(big.Int).SetUint64(rule.M)).Uint64())
+	}
+	if len(p.Rules) > 0 && !o.slow {
+		g.masks = newRuleMasks(p.Rules, r.k)
 	}
 	gen := encoder{r: r, end: g.d, tb: -1, tally: newTally(r.j)}
 	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
@@ -290,12 +301,14 @@ type unit struct {
 	fast     bool
 	from, to uint64
 	acc      acc
-	jobs     []jumpJob // numbers waiting for the two-lane search
-	offs     []uint64  // and their offsets
-	x0mod    []uint64  // x0 mod each rule's modulus
-	rem      []uint64  // the current number mod each rule's modulus
-	joined   []uint64  // the join flags of the stub's survivors, if any
-	surv     int       // survivors visited so far, in the order of the codes
+	jobs     []windowJob // numbers waiting for the window search
+	offs     []uint64    // and their offsets
+	done     []windowJob // the jobs the window search hands on
+	x0mod    []uint64    // x0 mod each rule's modulus
+	rem      []uint64    // the current number mod each rule's modulus
+	x0modP   uint64      // x0 mod the masks' modulus
+	joined   []uint64    // the join flags of the stub's survivors, if any
+	surv     int         // survivors visited so far, in the order of the codes
 }
 
 // ruleStart sets the rule residues for the number at offset off.
@@ -337,10 +350,12 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 
 	units := make([]*unit, 0, len(g.stubs)+2)
 	newUnit := func(a, b uint64) *unit {
-		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k, len(g.p.Rules)),
-			jobs: make([]jumpJob, 0, 512), offs: make([]uint64, 0, 512)}
+		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k, len(g.p.Rules))}
 		if fast {
 			u.x0u = x0.Uint64()
+		}
+		if g.masks != nil {
+			u.x0modP = new(big.Int).Mod(x0, new(big.Int).SetUint64(g.masks.p)).Uint64()
 		}
 		for _, rule := range g.p.Rules {
 			u.x0mod = append(u.x0mod, new(big.Int).Mod(x0, new(big.Int).SetUint64(rule.M)).Uint64())
@@ -369,8 +384,13 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 				return err
 			}
 			sv, v := g.r.stubStart(res, g.d)
-			g.r.leaves(g.d, sv, v, res, g.k, stubs[s])
-			stubs[s].flush()
+			u := stubs[s]
+			buf := bufPool.Get().(*searchBuf)
+			u.jobs, u.offs, u.done = buf.jobs[:0], buf.offs[:0], buf.done[:0]
+			g.r.leaves(g.d, sv, v, res, g.k, u)
+			u.flush()
+			u.jobs, u.offs, u.done = nil, nil, nil
+			bufPool.Put(buf)
 			return nil
 		})
 	}
@@ -430,10 +450,35 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 	}
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
 	rules := len(u.g.p.Rules) > 0
-	if rules {
-		u.ruleStart(off)
-	}
-	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil {
+	if u.fast && tk.b == nil && r.powFits[s] && r.win != nil {
+		slack := int64(k)<<slackShift - int64(s)*r.winL
+		if rules && u.g.masks != nil && u.x0u+off >= u.g.masks.minN {
+			// The members the rules leave, 64 at a time from the masks.
+			mk := u.g.masks
+			rho := (u.x0modP + off%mk.p) % mk.p
+			for q := uint64(0); q < n; q += 64 {
+				valid := ^uint64(0)
+				if n-q < 64 {
+					valid = 1<<(n-q) - 1
+				}
+				any := uint64(0)
+				for i, m := range mk.rule {
+					hit := m[rho] & valid
+					u.acc.rules[i] += uint64(bits.OnesCount64(hit))
+					any |= hit
+				}
+				for left := valid &^ any; left != 0; left &= left - 1 {
+					u.push(off+(q+uint64(bits.TrailingZeros64(left)))<<k, s, tk, slack)
+				}
+				if rho += mk.step64; rho >= mk.p {
+					rho -= mk.p
+				}
+			}
+			return
+		}
+		if rules {
+			u.ruleStart(off)
+		}
 		for ; n > 0; n, off = n-1, off+1<<k {
 			if rules {
 				if i := u.ruleNext(off); i >= 0 {
@@ -441,22 +486,12 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 					continue
 				}
 			}
-			num := u.x0u + off
-			x, ok := r.powU[s].mul64(num >> k)
-			if ok {
-				x, ok = x.add(tk.u)
-			}
-			if !ok || x.hi >= r.jumpLim {
-				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), limit), cSearch)
-				continue
-			}
-			u.jobs = append(u.jobs, jumpJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k)})
-			u.offs = append(u.offs, off)
-			if len(u.jobs) == cap(u.jobs) {
-				u.flush()
-			}
+			u.push(off, s, tk, slack)
 		}
 		return
+	}
+	if rules {
+		u.ruleStart(off)
 	}
 	for ; n > 0; n, off = n-1, off+1<<k {
 		if rules {
@@ -483,20 +518,109 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 	}
 }
 
-// flush searches the numbers gathered so far, two lanes at a time; the
-// few the lanes hand back (cap or value limit) take the general path.
+// push queues the member at offset off of a survivor class (s odd steps,
+// tk = T^k of its residue) for the window search, or searches it with
+// math/big when the jump leaves 128 bits.
+func (u *unit) push(off uint64, s int, tk exact, slack int64) {
+	r, k := u.g.r, u.g.k
+	num := u.x0u + off
+	x, ok := r.powU[s].mul64(num >> k)
+	if ok {
+		x, ok = x.add(tk.u)
+	}
+	if !ok {
+		u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), u.g.p.Cap), cSearch)
+		return
+	}
+	u.jobs = append(u.jobs, windowJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k), slack: slack, at: uint32(len(u.jobs))})
+	u.offs = append(u.offs, off)
+	if len(u.jobs) == cap(u.jobs) {
+		u.flush()
+	}
+}
+
+// ruleMasks say which members of a survivor class the predecessor rules
+// justify, 64 members at a time, without testing each: the rules' moduli
+// are odd (powers of a), so n mod p, p the least common multiple of the
+// moduli, runs through a fixed cycle as n steps by 2^k.
+type ruleMasks struct {
+	p      uint64
+	step64 uint64     // 64*2^k mod p
+	minN   uint64     // the masks hold for n >= minN: every rule's c is below it
+	rule   [][]uint64 // rule[i][rho]: bit q says that rule i is the first to fit n + q*2^k, for n = rho mod p
+}
+
+// maxMaskModulus bounds p, for the table's size: rules*p words.
+const maxMaskModulus = 1 << 16
+
+// newRuleMasks builds the masks, or returns nil when p is too large.
+func newRuleMasks(rules []cert.Rule, k int) *ruleMasks {
+	p := uint64(1)
+	for _, rule := range rules {
+		g := p
+		for b := rule.M; b != 0; g, b = b, g%b {
+		}
+		if p = p / g * rule.M; p > maxMaskModulus {
+			return nil
+		}
+	}
+	step := new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(k)), new(big.Int).SetUint64(p)).Uint64()
+	mk := &ruleMasks{p: p, step64: 64 * step % p}
+	for _, rule := range rules {
+		mk.minN = max(mk.minN, rule.C)
+		mk.rule = append(mk.rule, make([]uint64, p))
+	}
+	for rho := range p {
+		x := rho
+		for q := range uint64(64) {
+			for i, rule := range rules {
+				if x%rule.M == rule.C%rule.M {
+					mk.rule[i][rho] |= 1 << q
+					break
+				}
+			}
+			if x += step; x >= p {
+				x -= p
+			}
+		}
+	}
+	return mk
+}
+
+// searchBuf holds a unit's queue while it searches: one per worker at a
+// time, not one per unit, since a block has thousands of units.
+type searchBuf struct {
+	jobs, done []windowJob
+	offs       []uint64
+}
+
+var bufPool = sync.Pool{New: func() any {
+	return &searchBuf{jobs: make([]windowJob, 0, flushSize), done: make([]windowJob, 0, flushSize), offs: make([]uint64, 0, flushSize)}
+}}
+
+// flushSize is how many numbers a unit gathers for the window search.
+const flushSize = 1024
+
+// flush searches the numbers gathered so far: windows for all of them
+// while none can drop, then the exact search from there for each.
 func (u *unit) flush() {
 	r, limit := u.g.r, u.g.p.Cap
-	searchJump2(r.jump, r.jumpLim, u.jobs, limit)
-	for i := range u.jobs {
-		j := &u.jobs[i]
-		o := outcome{fate: cert.Descends, sigma: j.sigma}
-		if j.sigma == 0 {
-			o = r.searchFrom(j.n, u128{j.hi, j.lo}, j.i, limit)
-		}
-		u.acc.note(u.offs[i], o, cSearch)
+	capLess := uint32(0)
+	if limit > windowBits {
+		capLess = limit - windowBits
 	}
-	u.jobs, u.offs = u.jobs[:0], u.offs[:0]
+	jobs, done := u.jobs, u.done[:0]
+	for len(jobs) > 0 {
+		jobs, done = windowPass(r.win, r.winLim, capLess, jobs, done)
+	}
+	for _, j := range done {
+		if sigma := r.windowFinish(&j, limit); sigma > 0 {
+			u.acc.note(u.offs[j.at], outcome{fate: cert.Descends, sigma: sigma}, cSearch)
+			continue
+		}
+		u.acc.note(u.offs[j.at], r.searchFrom(j.n, u128{j.hi, j.lo}, j.i, limit), cSearch)
+	}
+	u.jobs, u.offs, u.done = u.jobs[:0], u.offs[:0], done[:0]
 }
 
 // jumpBig returns T^k(num) = a^s*(num >> k) + T^k(res), exactly.
