@@ -11,9 +11,9 @@ import (
 	"descent/cert"
 )
 
-// rangeBoth writes the range certificate with the window search and the
-// rule masks, and with them turned off (the member-by-member path), and
-// returns both files.
+// rangeBoth writes the range certificate with the two-lane search and
+// the rule masks, and with them turned off (each member tried against
+// each rule and searched alone), and returns both files.
 func rangeBoth(t testing.TB, m cert.Map, k int, joins bool, rules bool, lo, hi *big.Int, e int) (fast, slow []byte, res *RangeResult) {
 	t.Helper()
 	var sf memFile
@@ -32,8 +32,8 @@ func rangeBoth(t testing.TB, m cert.Map, k int, joins bool, rules bool, lo, hi *
 }
 
 func TestFastPathsWriteTheSameBytes(t *testing.T) {
-	// The window search and the rule masks change how numbers are
-	// searched, never what is written: the same bytes as the plain path,
+	// The two-lane search and the rule masks change how numbers are
+	// searched and skipped, never what is written: the same bytes as the plain path,
 	// for every map, with and without joins and rules, below and across
 	// 2^64.
 	for _, c := range []struct {

@@ -48,7 +48,7 @@ type RangeOptions struct {
 	// header with totals zero (merge adds them up). Done then counts from
 	// the shard's first block.
 	Shard *Shard
-	// slow turns off the window search and the rule masks (tests compare
+	// slow turns off the two-lane search and the rule masks (tests compare
 	// the certificates written with and without them).
 	slow bool
 }
@@ -144,6 +144,7 @@ type ranger struct {
 	// below stub i (in the order of the codes) is joined.
 	joined [][]uint64
 	masks  *ruleMasks // nil: rules are tested member by member
+	lanes  bool       // the two-lane search, else number by number
 }
 
 // Range searches [Lo, Hi) and writes the range certificate to w.
@@ -157,10 +158,7 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	}
 	r.work = newMeter(ctx)
 	r.ceiling = p.Ceiling
-	if o.slow {
-		r.win = nil
-	}
-	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
+	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound(), lanes: !o.slow}
 	for _, rule := range p.Rules {
 		g.inc = append(g.inc, new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(r.k)), new(big.Int).SetUint64(rule.M)).Uint64())
 	}
@@ -301,14 +299,13 @@ type unit struct {
 	fast     bool
 	from, to uint64
 	acc      acc
-	jobs     []windowJob // numbers waiting for the window search
-	offs     []uint64    // and their offsets
-	done     []windowJob // the jobs the window search hands on
-	x0mod    []uint64    // x0 mod each rule's modulus
-	rem      []uint64    // the current number mod each rule's modulus
-	x0modP   uint64      // x0 mod the masks' modulus
-	joined   []uint64    // the join flags of the stub's survivors, if any
-	surv     int         // survivors visited so far, in the order of the codes
+	jobs     []jumpJob // numbers waiting for the two-lane search
+	offs     []uint64  // and their offsets
+	x0mod    []uint64  // x0 mod each rule's modulus
+	rem      []uint64  // the current number mod each rule's modulus
+	x0modP   uint64    // x0 mod the masks' modulus
+	joined   []uint64  // the join flags of the stub's survivors, if any
+	surv     int       // survivors visited so far, in the order of the codes
 }
 
 // ruleStart sets the rule residues for the number at offset off.
@@ -386,10 +383,10 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 			sv, v := g.r.stubStart(res, g.d)
 			u := stubs[s]
 			buf := bufPool.Get().(*searchBuf)
-			u.jobs, u.offs, u.done = buf.jobs[:0], buf.offs[:0], buf.done[:0]
+			u.jobs, u.offs = buf.jobs[:0], buf.offs[:0]
 			g.r.leaves(g.d, sv, v, res, g.k, u)
 			u.flush()
-			u.jobs, u.offs, u.done = nil, nil, nil
+			u.jobs, u.offs = nil, nil
 			bufPool.Put(buf)
 			return nil
 		})
@@ -450,8 +447,7 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 	}
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
 	rules := len(u.g.p.Rules) > 0
-	if u.fast && tk.b == nil && r.powFits[s] && r.win != nil {
-		slack := int64(k)<<slackShift - int64(s)*r.winL
+	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil && u.g.lanes {
 		if rules && u.g.masks != nil && u.x0u+off >= u.g.masks.minN {
 			// The members the rules leave, 64 at a time from the masks.
 			mk := u.g.masks
@@ -468,7 +464,7 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 					any |= hit
 				}
 				for left := valid &^ any; left != 0; left &= left - 1 {
-					u.push(off+(q+uint64(bits.TrailingZeros64(left)))<<k, s, tk, slack)
+					u.push(off+(q+uint64(bits.TrailingZeros64(left)))<<k, s, tk)
 				}
 				if rho += mk.step64; rho >= mk.p {
 					rho -= mk.p
@@ -486,7 +482,7 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 					continue
 				}
 			}
-			u.push(off, s, tk, slack)
+			u.push(off, s, tk)
 		}
 		return
 	}
@@ -519,20 +515,20 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 }
 
 // push queues the member at offset off of a survivor class (s odd steps,
-// tk = T^k of its residue) for the window search, or searches it with
-// math/big when the jump leaves 128 bits.
-func (u *unit) push(off uint64, s int, tk exact, slack int64) {
+// tk = T^k of its residue) for the two-lane search, or searches it with
+// math/big when the jump leaves 128 bits or the table's range.
+func (u *unit) push(off uint64, s int, tk exact) {
 	r, k := u.g.r, u.g.k
 	num := u.x0u + off
 	x, ok := r.powU[s].mul64(num >> k)
 	if ok {
 		x, ok = x.add(tk.u)
 	}
-	if !ok {
+	if !ok || x.hi >= r.jumpLim {
 		u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), u.g.p.Cap), cSearch)
 		return
 	}
-	u.jobs = append(u.jobs, windowJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k), slack: slack, at: uint32(len(u.jobs))})
+	u.jobs = append(u.jobs, jumpJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k)})
 	u.offs = append(u.offs, off)
 	if len(u.jobs) == cap(u.jobs) {
 		u.flush()
@@ -590,37 +586,31 @@ func newRuleMasks(rules []cert.Rule, k int) *ruleMasks {
 // searchBuf holds a unit's queue while it searches: one per worker at a
 // time, not one per unit, since a block has thousands of units.
 type searchBuf struct {
-	jobs, done []windowJob
-	offs       []uint64
+	jobs []jumpJob
+	offs []uint64
 }
 
 var bufPool = sync.Pool{New: func() any {
-	return &searchBuf{jobs: make([]windowJob, 0, flushSize), done: make([]windowJob, 0, flushSize), offs: make([]uint64, 0, flushSize)}
+	return &searchBuf{jobs: make([]jumpJob, 0, flushSize), offs: make([]uint64, 0, flushSize)}
 }}
 
-// flushSize is how many numbers a unit gathers for the window search.
+// flushSize is how many numbers a unit gathers for the two-lane search.
 const flushSize = 1024
 
-// flush searches the numbers gathered so far: windows for all of them
-// while none can drop, then the exact search from there for each.
+// flush searches the numbers gathered so far, two lanes at a time; the
+// few the lanes hand back (cap or value limit) take the general path.
 func (u *unit) flush() {
 	r, limit := u.g.r, u.g.p.Cap
-	capLess := uint32(0)
-	if limit > windowBits {
-		capLess = limit - windowBits
-	}
-	jobs, done := u.jobs, u.done[:0]
-	for len(jobs) > 0 {
-		jobs, done = windowPass(r.win, r.winLim, capLess, jobs, done)
-	}
-	for _, j := range done {
-		if sigma := r.windowFinish(&j, limit); sigma > 0 {
-			u.acc.note(u.offs[j.at], outcome{fate: cert.Descends, sigma: sigma}, cSearch)
-			continue
+	searchJump2(r.jump, r.jumpLim, u.jobs, limit)
+	for i := range u.jobs {
+		j := &u.jobs[i]
+		o := outcome{fate: cert.Descends, sigma: j.sigma}
+		if j.sigma == 0 {
+			o = r.searchFrom(j.n, u128{j.hi, j.lo}, j.i, limit)
 		}
-		u.acc.note(u.offs[j.at], r.searchFrom(j.n, u128{j.hi, j.lo}, j.i, limit), cSearch)
+		u.acc.note(u.offs[i], o, cSearch)
 	}
-	u.jobs, u.offs, u.done = u.jobs[:0], u.offs[:0], done[:0]
+	u.jobs, u.offs = u.jobs[:0], u.offs[:0]
 }
 
 // jumpBig returns T^k(num) = a^s*(num >> k) + T^k(res), exactly.
@@ -707,6 +697,9 @@ func (a *acc) note(off uint64, o outcome, rule int) {
 func (a *acc) point(off uint64, sigma uint32) {
 	if sigma > a.maxSigma || (sigma == a.maxSigma && off < a.maxAt) {
 		a.maxSigma, a.maxAt = sigma, off
+	}
+	if len(a.stairs) > 0 && a.stairs[0].off < off && a.stairs[0].sigma >= sigma {
+		return // the first record already dominates it, as it does most
 	}
 	// The records are the prefix maxima: (off, sigma) is one unless a
 	// point before it has a stopping time at least as large.

@@ -29,9 +29,6 @@ type rules struct {
 	limHi   uint64 // while x>>64 < limHi, a step of the search fits 128 bits
 	jump    []jumpEntry
 	jumpLim uint64 // the table serves values whose high word is below it
-	win     []windowEntry
-	winL    int64  // the lower bound of log2(a) the window table uses
-	winLim  uint64 // the window table serves values whose high word is at most it
 	bigA    *big.Int
 	bigB    *big.Int
 	limit   int    // cap on the exception search, in numbers tested
@@ -66,7 +63,6 @@ func newRules(m cert.Map, k, j int) (*rules, error) {
 		p.Mul(p, r.bigA)
 	}
 	r.jump, r.jumpLim = r.jumpTable()
-	r.win, r.winL, r.winLim = r.windowTable()
 	return r, nil
 }
 
