@@ -11,9 +11,10 @@ import (
 	"descent/cert"
 )
 
-// rangeBoth writes the range certificate with the two-lane search and
-// the rule masks, and with them turned off (each member tried against
-// each rule and searched alone), and returns both files.
+// rangeBoth writes the range certificate with the two-lane search, the
+// rule masks and the join flags of CheckSieveRoot, and with all of them
+// turned off (each member tried against each rule and searched alone, the
+// flags computed by the range), and returns both files.
 func rangeBoth(t testing.TB, m cert.Map, k int, joins bool, rules bool, lo, hi *big.Int, e int) (fast, slow []byte, res *RangeResult) {
 	t.Helper()
 	var sf memFile
@@ -23,8 +24,12 @@ func rangeBoth(t testing.TB, m cert.Map, k int, joins bool, rules bool, lo, hi *
 	if rules {
 		p.Rules = AutoRules(m)
 	}
+	// The fast run takes the join flags from the sieve's regeneration, the
+	// slow one computes them itself.
+	checked, err := CheckSieveRoot(context.Background(), sres.Header, sres.Root, 0)
+	require.NoError(t, err)
 	var f, g memFile
-	res, err = Range(context.Background(), &f, p, RangeOptions{})
+	res, err = Range(context.Background(), &f, p, RangeOptions{Sieve: checked})
 	require.NoError(t, err)
 	_, err = Range(context.Background(), &g, p, RangeOptions{slow: true})
 	require.NoError(t, err)
@@ -51,6 +56,7 @@ func TestFastPathsWriteTheSameBytes(t *testing.T) {
 		{cert.Map{A: 5, B: 1}, 12, true, pow2(40), 1 << 14, 0},
 		{cert.Map{A: 3, B: 5}, 12, false, pow2(50), 1 << 17, 0},
 		{cert.Collatz, 18, true, new(big.Int).Add(pow2(100), big.NewInt(5)), 1 << 19, 0},
+		{cert.Collatz, 22, true, pow2(61), 1 << 23, 0}, // joins with r - 1 only (k > ExhaustiveJoins)
 	} {
 		for _, rules := range []bool{false, true} {
 			hi := new(big.Int).Add(c.lo, big.NewInt(c.n))

@@ -48,6 +48,9 @@ type RangeOptions struct {
 	// header with totals zero (merge adds them up). Done then counts from
 	// the shard's first block.
 	Shard *Shard
+	// Sieve, if set, is what CheckSieveRoot derived of the sieve; it is
+	// used when its root is the range's sieve root.
+	Sieve *CheckedSieve
 	// slow turns off the two-lane search and the rule masks (tests compare
 	// the certificates written with and without them).
 	slow bool
@@ -114,17 +117,27 @@ func NormalizeRange(p *RangeParams) error {
 
 // CheckSieveRoot regenerates the sieve certificate that h describes and
 // makes sure its root is root: a range certificate may only name the one
-// canonical, true sieve for its map and k.
-func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) error {
-	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Joins: h.Joins}, Options{Workers: workers})
+// canonical, true sieve for its map and k. What the regeneration learns
+// on the way (the join flags) is returned for RangeOptions.Sieve.
+func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) (*CheckedSieve, error) {
+	c := &CheckedSieve{root: root}
+	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Joins: h.Joins}, Options{Workers: workers, joined: &c.joined})
 	if err != nil {
-		return err
+		return nil, err
 	}
 	if res.Root != root {
-		return fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d, ceiling %d",
+		return nil, fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d, ceiling %d",
 			root, res.Root, h.Map, h.K, h.J, h.Cap, h.Ceiling)
 	}
-	return nil
+	return c, nil
+}
+
+// CheckedSieve is what CheckSieveRoot derived of a sieve with a given
+// root besides the root itself: for a sieve with joins, the join flags of
+// its survivors, which a range on it would otherwise compute again.
+type CheckedSieve struct {
+	root   cert.Hash
+	joined [][]uint64
 }
 
 type discard struct{}
@@ -170,7 +183,9 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	if err := gen.top(0, 0, 0, 0); err != nil {
 		return nil, err
 	}
-	if p.Sieve.Joins {
+	if p.Sieve.Joins && o.Sieve != nil && o.Sieve.root == p.SieveRoot && o.Sieve.joined != nil {
+		g.joined = o.Sieve.joined
+	} else if p.Sieve.Joins {
 		if g.joined, err = r.joinFlags(ctx, o.Workers); err != nil {
 			return nil, err
 		}
