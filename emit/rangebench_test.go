@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math/big"
+	"math/bits"
 	"syscall"
 	"testing"
 	"time"
@@ -76,3 +77,35 @@ func processCPU() time.Duration {
 type discardAt struct{}
 
 func (discardAt) WriteAt(p []byte, _ int64) (int, error) { return len(p), nil }
+
+// BenchmarkPlainLoopCPU is the baseline of BenchmarkRangeSearch in the
+// same units: iterate every n from 2^60 until it drops below itself, no
+// sieve, exact in 128 bits, and report numbers per CPU-second.
+//
+//	go test ./emit -run '^$' -bench 'PlainLoopCPU' -benchtime 1x -count 5
+func BenchmarkPlainLoopCPU(b *testing.B) {
+	const count = 1 << 26
+	var steps uint64
+	c0 := processCPU()
+	for range b.N {
+		for n := uint64(1) << 60; n < 1<<60+count; n++ {
+			hi, lo := uint64(0), n
+			for hi != 0 || lo >= n {
+				if lo&1 == 0 {
+					lo = lo>>1 | hi<<63
+					hi >>= 1
+				} else { // (3x+1)/2 = x + (x+1)/2
+					h1, l1 := hi>>1, lo>>1|hi<<63
+					var c uint64
+					lo, c = bits.Add64(lo, l1+1, 0)
+					hi += h1 + c
+				}
+				steps++
+			}
+		}
+	}
+	cpu := (processCPU() - c0).Seconds() / float64(b.N)
+	b.ReportMetric(cpu, "cpu-s/op")
+	b.ReportMetric(count/cpu, "numbers/cpu-s")
+	b.ReportMetric(float64(steps)/float64(b.N)/count, "steps/number")
+}
