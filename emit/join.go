@@ -321,6 +321,21 @@ func (r *rules) step64(v uint64, s int) (uint64, int) {
 	return (r.a*v + r.b) >> 1, s + 1
 }
 
+// joinBits reads a chunk's join section back as one bit per survivor.
+func joinBits(jw *cert.JoinWriter, open uint64) ([]uint64, error) {
+	js, err := cert.ParseJoins(jw.AppendTo(nil), int(open), 0)
+	if err != nil {
+		return nil, err
+	}
+	bits := make([]uint64, (len(js.Joined)+63)/64)
+	for x, j := range js.Joined {
+		if j {
+			bits[x/64] |= 1 << (x % 64)
+		}
+	}
+	return bits, nil
+}
+
 // joinFlags lists, for each stub of a sieve with joins, which of its
 // survivors the sieve's writer joins, one bit per survivor in the order of
 // the codes: the flags a range on that sieve needs (SPEC.md, section 6).
@@ -350,19 +365,9 @@ func (r *rules) joinFlags(ctx context.Context, workers int) ([][]uint64, error) 
 				return err
 			}
 			e := encoder{r: r, end: r.j, tb: r.j - levels, mask: 1<<levels - 1, table: table, tally: newTally(r.j)}
-			jw := f.chunk(&e, st, d)
-			js, err := cert.ParseJoins(jw.AppendTo(nil), int(e.tally.open), 0)
-			if err != nil {
-				return err
-			}
-			bits := make([]uint64, (len(js.Joined)+63)/64)
-			for x, j := range js.Joined {
-				if j {
-					bits[x/64] |= 1 << (x % 64)
-				}
-			}
+			bits, err := joinBits(f.chunk(&e, st, d), e.tally.open)
 			out[i] = bits
-			return nil
+			return err
 		})
 	}
 	return out, g.Wait()

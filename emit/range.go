@@ -8,6 +8,7 @@ import (
 	"math/bits"
 	"runtime"
 	"sort"
+	"sync"
 
 	"golang.org/x/sync/errgroup"
 
@@ -47,6 +48,12 @@ type RangeOptions struct {
 	// header with totals zero (merge adds them up). Done then counts from
 	// the shard's first block.
 	Shard *Shard
+	// Sieve, if set, is what CheckSieveRoot derived of the sieve; it is
+	// used when its root is the range's sieve root.
+	Sieve *CheckedSieve
+	// slow turns off the two-lane search and the rule masks (tests compare
+	// the certificates written with and without them).
+	slow bool
 }
 
 // RangeResult describes a written range certificate.
@@ -110,17 +117,27 @@ func NormalizeRange(p *RangeParams) error {
 
 // CheckSieveRoot regenerates the sieve certificate that h describes and
 // makes sure its root is root: a range certificate may only name the one
-// canonical, true sieve for its map and k.
-func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) error {
-	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Joins: h.Joins}, Options{Workers: workers})
+// canonical, true sieve for its map and k. What the regeneration learns
+// on the way (the join flags) is returned for RangeOptions.Sieve.
+func CheckSieveRoot(ctx context.Context, h *cert.SieveHeader, root cert.Hash, workers int) (*CheckedSieve, error) {
+	c := &CheckedSieve{root: root}
+	res, err := Sieve(ctx, discard{}, SieveParams{Map: h.Map, K: h.K, J: h.J, Cap: h.Cap, Ceiling: h.Ceiling, Joins: h.Joins}, Options{Workers: workers, joined: &c.joined})
 	if err != nil {
-		return err
+		return nil, err
 	}
 	if res.Root != root {
-		return fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d, ceiling %d",
+		return nil, fmt.Errorf("the sieve file's root %v is not the root %v of the sieve for %v, k = %d, j = %d, cap %d, ceiling %d",
 			root, res.Root, h.Map, h.K, h.J, h.Cap, h.Ceiling)
 	}
-	return nil
+	return c, nil
+}
+
+// CheckedSieve is what CheckSieveRoot derived of a sieve with a given
+// root besides the root itself: for a sieve with joins, the join flags of
+// its survivors, which a range on it would otherwise compute again.
+type CheckedSieve struct {
+	root   cert.Hash
+	joined [][]uint64
 }
 
 type discard struct{}
@@ -139,6 +156,8 @@ type ranger struct {
 	// joined[i]: for a sieve with joins, bit x says whether survivor x
 	// below stub i (in the order of the codes) is joined.
 	joined [][]uint64
+	masks  *ruleMasks // nil: rules are tested member by member
+	lanes  bool       // the two-lane search, else number by number
 }
 
 // Range searches [Lo, Hi) and writes the range certificate to w.
@@ -152,16 +171,21 @@ func Range(ctx context.Context, w io.WriterAt, p RangeParams, o RangeOptions) (*
 	}
 	r.work = newMeter(ctx)
 	r.ceiling = p.Ceiling
-	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound()}
+	g := &ranger{r: r, p: p, k: r.k, d: cert.SplitDepth(r.k), small: r.smallBound(), lanes: !o.slow}
 	for _, rule := range p.Rules {
 		g.inc = append(g.inc, new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(r.k)), new(big.Int).SetUint64(rule.M)).Uint64())
+	}
+	if len(p.Rules) > 0 && !o.slow {
+		g.masks = newRuleMasks(p.Rules, r.k)
 	}
 	gen := encoder{r: r, end: g.d, tb: -1, tally: newTally(r.j)}
 	gen.stub = func(res uint64, _ int, _ uint64) error { g.stubs = append(g.stubs, res); return nil }
 	if err := gen.top(0, 0, 0, 0); err != nil {
 		return nil, err
 	}
-	if p.Sieve.Joins {
+	if p.Sieve.Joins && o.Sieve != nil && o.Sieve.root == p.SieveRoot && o.Sieve.joined != nil {
+		g.joined = o.Sieve.joined
+	} else if p.Sieve.Joins {
 		if g.joined, err = r.joinFlags(ctx, o.Workers); err != nil {
 			return nil, err
 		}
@@ -294,6 +318,7 @@ type unit struct {
 	offs     []uint64  // and their offsets
 	x0mod    []uint64  // x0 mod each rule's modulus
 	rem      []uint64  // the current number mod each rule's modulus
+	x0modP   uint64    // x0 mod the masks' modulus
 	joined   []uint64  // the join flags of the stub's survivors, if any
 	surv     int       // survivors visited so far, in the order of the codes
 }
@@ -337,10 +362,12 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 
 	units := make([]*unit, 0, len(g.stubs)+2)
 	newUnit := func(a, b uint64) *unit {
-		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k, len(g.p.Rules)),
-			jobs: make([]jumpJob, 0, 512), offs: make([]uint64, 0, 512)}
+		u := &unit{g: g, x0: x0, fast: fast, from: a, to: b, acc: newAcc(g.k, len(g.p.Rules))}
 		if fast {
 			u.x0u = x0.Uint64()
+		}
+		if g.masks != nil {
+			u.x0modP = new(big.Int).Mod(x0, new(big.Int).SetUint64(g.masks.p)).Uint64()
 		}
 		for _, rule := range g.p.Rules {
 			u.x0mod = append(u.x0mod, new(big.Int).Mod(x0, new(big.Int).SetUint64(rule.M)).Uint64())
@@ -369,8 +396,13 @@ func (g *ranger) block(ctx context.Context, i, workers int) (*cert.Block, error)
 				return err
 			}
 			sv, v := g.r.stubStart(res, g.d)
-			g.r.leaves(g.d, sv, v, res, g.k, stubs[s])
-			stubs[s].flush()
+			u := stubs[s]
+			buf := bufPool.Get().(*searchBuf)
+			u.jobs, u.offs = buf.jobs[:0], buf.offs[:0]
+			g.r.leaves(g.d, sv, v, res, g.k, u)
+			u.flush()
+			u.jobs, u.offs = nil, nil
+			bufPool.Put(buf)
 			return nil
 		})
 	}
@@ -430,10 +462,34 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 	}
 	r, k, limit := u.g.r, u.g.k, u.g.p.Cap
 	rules := len(u.g.p.Rules) > 0
-	if rules {
-		u.ruleStart(off)
-	}
-	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil {
+	if u.fast && tk.b == nil && r.powFits[s] && r.jump != nil && u.g.lanes {
+		if rules && u.g.masks != nil && u.x0u+off >= u.g.masks.minN {
+			// The members the rules leave, 64 at a time from the masks.
+			mk := u.g.masks
+			rho := (u.x0modP + off%mk.p) % mk.p
+			for q := uint64(0); q < n; q += 64 {
+				valid := ^uint64(0)
+				if n-q < 64 {
+					valid = 1<<(n-q) - 1
+				}
+				any := uint64(0)
+				for i, m := range mk.rule {
+					hit := m[rho] & valid
+					u.acc.rules[i] += uint64(bits.OnesCount64(hit))
+					any |= hit
+				}
+				for left := valid &^ any; left != 0; left &= left - 1 {
+					u.push(off+(q+uint64(bits.TrailingZeros64(left)))<<k, s, tk)
+				}
+				if rho += mk.step64; rho >= mk.p {
+					rho -= mk.p
+				}
+			}
+			return
+		}
+		if rules {
+			u.ruleStart(off)
+		}
 		for ; n > 0; n, off = n-1, off+1<<k {
 			if rules {
 				if i := u.ruleNext(off); i >= 0 {
@@ -441,22 +497,12 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 					continue
 				}
 			}
-			num := u.x0u + off
-			x, ok := r.powU[s].mul64(num >> k)
-			if ok {
-				x, ok = x.add(tk.u)
-			}
-			if !ok || x.hi >= r.jumpLim {
-				u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), limit), cSearch)
-				continue
-			}
-			u.jobs = append(u.jobs, jumpJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k)})
-			u.offs = append(u.offs, off)
-			if len(u.jobs) == cap(u.jobs) {
-				u.flush()
-			}
+			u.push(off, s, tk)
 		}
 		return
+	}
+	if rules {
+		u.ruleStart(off)
 	}
 	for ; n > 0; n, off = n-1, off+1<<k {
 		if rules {
@@ -482,6 +528,89 @@ func (u *unit) survivor(res uint64, s int, tk exact) {
 		u.acc.note(off, r.searchBig(num, u.jumpBig(num, s, tk), uint32(k), limit), cSearch)
 	}
 }
+
+// push queues the member at offset off of a survivor class (s odd steps,
+// tk = T^k of its residue) for the two-lane search, or searches it with
+// math/big when the jump leaves 128 bits or the table's range.
+func (u *unit) push(off uint64, s int, tk exact) {
+	r, k := u.g.r, u.g.k
+	num := u.x0u + off
+	x, ok := r.powU[s].mul64(num >> k)
+	if ok {
+		x, ok = x.add(tk.u)
+	}
+	if !ok || x.hi >= r.jumpLim {
+		u.acc.note(off, r.searchBig(new(big.Int).SetUint64(num), u.jumpBig(new(big.Int).SetUint64(num), s, tk), uint32(k), u.g.p.Cap), cSearch)
+		return
+	}
+	u.jobs = append(u.jobs, jumpJob{n: num, hi: x.hi, lo: x.lo, i: uint32(k)})
+	u.offs = append(u.offs, off)
+	if len(u.jobs) == cap(u.jobs) {
+		u.flush()
+	}
+}
+
+// ruleMasks say which members of a survivor class the predecessor rules
+// justify, 64 members at a time, without testing each: the rules' moduli
+// are odd (powers of a), so n mod p, p the least common multiple of the
+// moduli, runs through a fixed cycle as n steps by 2^k.
+type ruleMasks struct {
+	p      uint64
+	step64 uint64     // 64*2^k mod p
+	minN   uint64     // the masks hold for n >= minN: every rule's c is below it
+	rule   [][]uint64 // rule[i][rho]: bit q says that rule i is the first to fit n + q*2^k, for n = rho mod p
+}
+
+// maxMaskModulus bounds p, for the table's size: rules*p words.
+const maxMaskModulus = 1 << 16
+
+// newRuleMasks builds the masks, or returns nil when p is too large.
+func newRuleMasks(rules []cert.Rule, k int) *ruleMasks {
+	p := uint64(1)
+	for _, rule := range rules {
+		g := p
+		for b := rule.M; b != 0; g, b = b, g%b {
+		}
+		if p = p / g * rule.M; p > maxMaskModulus {
+			return nil
+		}
+	}
+	step := new(big.Int).Mod(new(big.Int).Lsh(big.NewInt(1), uint(k)), new(big.Int).SetUint64(p)).Uint64()
+	mk := &ruleMasks{p: p, step64: 64 * step % p}
+	for _, rule := range rules {
+		mk.minN = max(mk.minN, rule.C)
+		mk.rule = append(mk.rule, make([]uint64, p))
+	}
+	for rho := range p {
+		x := rho
+		for q := range uint64(64) {
+			for i, rule := range rules {
+				if x%rule.M == rule.C%rule.M {
+					mk.rule[i][rho] |= 1 << q
+					break
+				}
+			}
+			if x += step; x >= p {
+				x -= p
+			}
+		}
+	}
+	return mk
+}
+
+// searchBuf holds a unit's queue while it searches: one per worker at a
+// time, not one per unit, since a block has thousands of units.
+type searchBuf struct {
+	jobs []jumpJob
+	offs []uint64
+}
+
+var bufPool = sync.Pool{New: func() any {
+	return &searchBuf{jobs: make([]jumpJob, 0, flushSize), offs: make([]uint64, 0, flushSize)}
+}}
+
+// flushSize is how many numbers a unit gathers for the two-lane search.
+const flushSize = 1024
 
 // flush searches the numbers gathered so far, two lanes at a time; the
 // few the lanes hand back (cap or value limit) take the general path.
@@ -583,6 +712,9 @@ func (a *acc) note(off uint64, o outcome, rule int) {
 func (a *acc) point(off uint64, sigma uint32) {
 	if sigma > a.maxSigma || (sigma == a.maxSigma && off < a.maxAt) {
 		a.maxSigma, a.maxAt = sigma, off
+	}
+	if len(a.stairs) > 0 && a.stairs[0].off < off && a.stairs[0].sigma >= sigma {
+		return // the first record already dominates it, as it does most
 	}
 	// The records are the prefix maxima: (off, sigma) is one unless a
 	// point before it has a stopping time at least as large.

@@ -39,6 +39,10 @@ type Options struct {
 	Workers  int                   // parallel chunk encoders; 0 means GOMAXPROCS
 	Progress func(done, total int) // called after each chunk is written
 	Shard    *Shard                // if set, write only this shard of the certificate
+	// joined, if set for a sieve with joins, receives the join flags of
+	// every chunk's survivors (joinFlags' form), so that a range on the
+	// sieve need not walk it again.
+	joined *[][]uint64
 }
 
 // Shard names shard I of N (SPEC.md, section 7): the records
@@ -72,6 +76,7 @@ type Result struct {
 }
 
 type stub struct {
+	idx int // its place among the stubs, in depth-first order
 	res uint64
 	s   int
 	v   uint64
@@ -163,6 +168,9 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 			return nil, err
 		}
 	}
+	if o.joined != nil && p.Joins {
+		*o.joined = make([][]uint64, top.tally.open)
+	}
 	top.tally.open = 0 // the stubs are not survivors; their subtrees count
 	total.add(top.tally)
 
@@ -183,7 +191,7 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 			if rec++; !want(rec) {
 				return nil
 			}
-			st := stub{res: res, s: s, v: v, out: make(chan chunkOut, 1)}
+			st := stub{idx: rec - 1, res: res, s: s, v: v, out: make(chan chunkOut, 1)}
 			if !trySend(ctx, order, st.out) || !trySend(ctx, jobs, st) {
 				return ctx.Err()
 			}
@@ -211,6 +219,13 @@ func Sieve(ctx context.Context, w io.WriterAt, p SieveParams, o Options) (*Resul
 					}
 					rec = jw.AppendTo(rec)
 					e.tally.joined = jw.Joined()
+					if o.joined != nil {
+						bits, err := joinBits(jw, e.tally.open)
+						if err != nil {
+							return err
+						}
+						(*o.joined)[st.idx] = bits
+					}
 				}
 				st.out <- chunkOut{rec: rec, leaf: cert.LeafHash(rec), tally: e.tally}
 			}

@@ -153,12 +153,13 @@ func (c *cli) runRange(ctx context.Context, r rangeRun) int {
 		f.abort()
 		return exitUsage
 	}
-	if err := emit.CheckSieveRoot(ctx, sh, root, r.workers); err != nil {
+	checked, err := emit.CheckSieveRoot(ctx, sh, root, r.workers)
+	if err != nil {
 		f.abort()
 		return c.runStopped(ctx, "emit range", j, r.out, fmt.Errorf("-sieve %s: %w", r.sievePath, err))
 	}
 	progress, finish := c.blockProgress(len(done))
-	res, err := emit.Range(ctx, f, p, emit.RangeOptions{Workers: r.workers, Done: done, Block: j.Append, Progress: progress, Shard: r.shard})
+	res, err := emit.Range(ctx, f, p, emit.RangeOptions{Workers: r.workers, Done: done, Block: j.Append, Progress: progress, Shard: r.shard, Sieve: checked})
 	finish()
 	if err == nil {
 		err = f.commit()
