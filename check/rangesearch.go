@@ -66,7 +66,8 @@ type searcher struct {
 	inc   int64  // (b+1)/2
 	joins bool   // the sieve has joins
 	jump  []jumpEntry
-	limJ  uint64 // below it (high word of x) a jump and its steps stay within 128 bits
+	rules *ruleTable // nil: ruleFor for every number
+	limJ  uint64     // below it (high word of x) a jump and its steps stay within 128 bits
 }
 
 // newSearcher sets up the search of the blocks of r.
@@ -86,6 +87,7 @@ func newSearcher(r *kernel.Range) *searcher {
 	// now, has a record for each.
 	s.stubs = r.P.Stubs(1 << 24)
 	s.jump, s.limJ = jumpTable(r.P)
+	s.rules = newRuleTable(h.Rules, h.K)
 	return s
 }
 
@@ -406,17 +408,22 @@ func (p *part) survivor(res uint64, odd int, tk wide) {
 	}
 	if p.fast && tk.big == nil && odd < len(s.pow64) {
 		m := s.pow64[odd]
-		var rules ruleWalk
-		if n > 1 { // for one member, a division per rule costs less than the walk's start
-			rules = s.ruleWalk(p.x0u + off)
+		var at uint64 // n mod L, for the rule table
+		if s.rules != nil {
+			at = (p.x0u + off) % uint64(len(s.rules.first))
 		}
 		for ; n > 0; n, off = n-1, off+1<<s.k {
 			num := p.x0u + off
 			r := -1
-			if rules.rules != nil {
-				r = rules.next(num)
-			} else {
+			if s.rules == nil || num < s.rules.maxC {
 				r = s.ruleFor(num)
+			} else {
+				r = int(s.rules.first[at])
+			}
+			if s.rules != nil {
+				if at += s.rules.step; at >= uint64(len(s.rules.first)) {
+					at -= uint64(len(s.rules.first))
+				}
 			}
 			if r >= 0 {
 				p.t.rules[r]++
@@ -613,36 +620,43 @@ func (s *searcher) ruleFor(n uint64) int {
 	return -1
 }
 
-// ruleWalk follows the numbers n, n+2^k, n+2^(k+1), ... < 2^64 of a class
-// through the predecessor rules: n mod M moves by 2^k mod M from one to
-// the next, an addition where ruleFor would divide for every rule and
-// number.
-type ruleWalk struct {
-	rules      []kernel.Rule
-	at, by, to [16]uint64 // n mod M, 2^k mod M, C mod M, per rule (16 at most: maxRules)
+// ruleTable is the first predecessor rule of each residue mod L, the least
+// common multiple of the rules' moduli (3n+1's auto rules: 3, 9, 81), or
+// nil if L is above 2^16: a class's members n, n + 2^k, ... then step
+// through the table by additions, where ruleFor divides for every rule and
+// number. It holds the congruence only; below the largest C, n >= C is
+// ruleFor's to judge.
+type ruleTable struct {
+	first []int8
+	step  uint64 // 2^k mod L
+	maxC  uint64
 }
 
-func (s *searcher) ruleWalk(n uint64) (w ruleWalk) {
-	w.rules = s.h.Rules
-	for i, r := range w.rules {
-		w.at[i], w.by[i], w.to[i] = n%r.M, (uint64(1)<<s.k)%r.M, r.C%r.M
-	}
-	return
-}
-
-// next returns the first rule that covers n, the walk's current number,
-// or -1, and moves the walk to n + 2^k.
-func (w *ruleWalk) next(n uint64) int {
-	hit := -1
-	for i, r := range w.rules {
-		if hit < 0 && w.at[i] == w.to[i] && n >= r.C {
-			hit = i
+func newRuleTable(rules []kernel.Rule, k int) *ruleTable {
+	l := uint64(1)
+	for _, r := range rules {
+		g, m := l, r.M
+		for m != 0 {
+			g, m = m, g%m
 		}
-		if w.at[i] += w.by[i]; w.at[i] >= r.M || w.at[i] < w.by[i] {
-			w.at[i] -= r.M
+		if l = l / g * r.M; l > 1<<16 {
+			return nil
 		}
 	}
-	return hit
+	t := &ruleTable{first: make([]int8, l), step: (1 << k) % l}
+	for x := range t.first {
+		t.first[x] = -1
+		for i, r := range rules {
+			if uint64(x)%r.M == r.C%r.M {
+				t.first[x] = int8(i)
+				break
+			}
+		}
+	}
+	for _, r := range rules {
+		t.maxC = max(t.maxC, r.C)
+	}
+	return t
 }
 
 func sortCycles(cs []kernel.CycleCount) {

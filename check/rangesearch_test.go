@@ -9,29 +9,33 @@ import (
 	"descent/check/kernel"
 )
 
-// The walk of a class through the rules finds, at each member, the first
-// rule that division finds (common practice, no source: the definition of
-// a rule's numbers, n = M*q + C), also for moduli near 2^64 where n mod M
-// plus 2^k mod M wraps around.
-func TestRuleWalkAgreesWithDivision(t *testing.T) {
+// The rule table, stepped through as the search steps through a class's
+// members n, n + 2^k, ..., finds at each member the first rule that
+// division finds (common practice, no source: the definition of a rule's
+// numbers, n = M*q + C).
+func TestRuleTableAgreesWithDivision(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
-	hits := 0
-	for trial := range 200 {
+	hits, tables := 0, 0
+	for trial := range 300 {
 		var rules []kernel.Rule
-		for range 1 + rng.IntN(16) {
-			m := uint64(2 + rng.IntN(200))
-			if trial%4 == 0 {
-				m = ^uint64(0) - rng.Uint64N(1<<20)
+		for range 1 + rng.IntN(4) {
+			m := uint64(2 + rng.IntN(300))
+			if trial%3 == 0 { // powers of 3, as 3n+1's rules have
+				m = []uint64{3, 9, 27, 81, 243}[rng.IntN(5)]
 			}
 			rules = append(rules, kernel.Rule{M: m, C: rng.Uint64N(3 * m / 2)})
 		}
 		k := 1 + rng.IntN(40)
-		s := &searcher{k: k, h: &kernel.RangeHeader{Rules: rules}}
-		n := rng.Uint64N(1 << 62)
-		if trial%4 == 0 { // a hit with a modulus near 2^64
-			rules[0].C = n + uint64(rng.IntN(300))<<k
+		s := &searcher{k: k, h: &kernel.RangeHeader{Rules: rules}, rules: newRuleTable(rules, k)}
+		if s.rules == nil {
+			continue
 		}
-		w := s.ruleWalk(n)
+		tables++
+		n := rng.Uint64N(1 << 62)
+		if trial%2 == 0 {
+			n = rng.Uint64N(600) // below some C
+		}
+		at := n % uint64(len(s.rules.first))
 		for j := range 300 {
 			num := n + uint64(j)<<k
 			want := -1
@@ -41,11 +45,17 @@ func TestRuleWalkAgreesWithDivision(t *testing.T) {
 					break
 				}
 			}
-			require.Equal(t, want, w.next(num), "trial %d, member %d", trial, j)
+			got := s.ruleFor(num)
+			if num >= s.rules.maxC {
+				got = int(s.rules.first[at])
+			}
+			require.Equal(t, want, got, "trial %d, member %d", trial, j)
 			if want >= 0 {
 				hits++
 			}
+			at = (at + s.rules.step) % uint64(len(s.rules.first))
 		}
 	}
+	require.Greater(t, tables, 100)
 	require.Greater(t, hits, 1000, "too few members rest on a rule for the test to mean much")
 }
